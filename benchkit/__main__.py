@@ -1,0 +1,5 @@
+import sys
+
+from benchkit.cli import main
+
+sys.exit(main())

@@ -1,0 +1,32 @@
+"""Writes that cannot be left half done: write a temporary file beside the target, fsync, rename."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+
+def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
+    """Replace `path` with `data` in one rename, so a reader sees the old file or the new one."""
+    target = Path(path)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, target)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    return target
+
+
+def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
+    """Text flavour of write_bytes_atomic (UTF-8, newline kept as given)."""
+    return write_bytes_atomic(path, text.encode("utf-8"))

@@ -1,0 +1,70 @@
+"""The `benchkit` command: one entry point, one sub-command per job.
+
+Bad input ends as one line on stderr (`benchkit: error: ...`) and exit code 2; nothing else
+is printed for it. Unexpected failures print a traceback, since they are bugs.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from benchkit import __version__
+from benchkit.commands import COMMANDS
+from benchkit.errors import UserError
+
+SAFETY_NOTE = (
+    "Safety: DC bias voltages and charged capacitors can shock, burn and damage parts. "
+    "A capacitor keeps its charge after the supply is off: discharge it and check it with a "
+    "meter before handling. Use current-limited supplies, guarded fixtures and the "
+    "interlocks your lab requires. This tool does not replace local electrical-safety codes, "
+    "your lab's safety rules or the judgement of a qualified person."
+)
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors as one line with exit code 2."""
+
+    def error(self, message: str):  # noqa: D401 - argparse hook
+        raise UserError(f"{self.prog}: {message} (see '{self.prog} --help')")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="benchkit",
+        description="Measure, fit, store and verify DC-bias curves of ceramic capacitors.",
+        epilog=SAFETY_NOTE,
+    )
+    parser.add_argument("--version", action="version", version=f"benchkit {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name in COMMANDS:
+        try:
+            module = importlib.import_module(f"benchkit.commands.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"benchkit.commands.{name}":
+                continue
+            raise
+        module.register(sub)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if not getattr(args, "func", None):
+            parser.print_help()
+            return 2
+        code = args.func(args)
+        return int(code or 0)
+    except UserError as exc:
+        print(f"benchkit: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("benchkit: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
