@@ -7,12 +7,22 @@ import tempfile
 from pathlib import Path
 
 
+def _umask_mode() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
+_DEFAULT_MODE = _umask_mode()
+
+
 def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     """Replace `path` with `data` in one rename, so a reader sees the old file or the new one."""
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
     try:
+        os.fchmod(fd, _DEFAULT_MODE)  # mkstemp makes 0600; reports and exports are for sharing
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
