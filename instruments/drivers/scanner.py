@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from .errors import InstrumentError, InstrumentLinkError, InstrumentTimeout
 from .instrument import Instrument
 from .setting import check_channel, parse_bool_reply
 
@@ -40,8 +41,16 @@ class Scanner(Instrument):
         """Open all channels, then close `channel`; the error queue is read after each."""
         n = self._channel(channel)          # before anything is written
         self.open_all()
-        self._send(self.profile.commands["close"].format(channel=n))
+        # remembered before it is sent (as settings are): if the link drops between the close
+        # and its error check, the reconnect closes this channel again on a scanner that restarted
         self.selected_channel = n
+        try:
+            self._send(self.profile.commands["close"].format(channel=n))
+        except (InstrumentTimeout, InstrumentLinkError):
+            raise
+        except InstrumentError:
+            self.selected_channel = None        # the scanner refused it: nothing to re-close
+            raise
 
     def open_channel(self, channel: int) -> None:
         n = self._channel(channel)

@@ -340,6 +340,16 @@ class Session:
                 self._event(f"link refused resynchronising ({exc})")
         self.reconnect()
 
+    def _recover_for(self, command: str) -> None:
+        """_recover(), with the command that was to be sent named when the link is lost."""
+        try:
+            self._recover()
+        except InstrumentLinkError as exc:
+            if exc.command is not None:
+                raise
+            raise InstrumentLinkError(f"{exc} (while sending '{command}')", role=self.role,
+                                      resource=self.resource, command=command) from None
+
     def reconnect(self) -> None:
         """Reopen the link (bounded attempts with backoff), check *IDN?, run on_reconnect."""
         if not self._user_open:
@@ -402,7 +412,7 @@ class Session:
                 self._sleep(self.backoff_s * 2 ** (attempt - 1))
             try:
                 if not self._recovering and (self._dirty or self._link_down or self._res is None):
-                    self._recover()
+                    self._recover_for(command)
                 self._raw_write(command)
                 return
             except _LinkDown as exc:
@@ -437,7 +447,7 @@ class Session:
                 self._sleep(self.backoff_s * 2 ** (attempt - 1))
             try:
                 if not self._recovering and (self._dirty or self._link_down or self._res is None):
-                    self._recover()
+                    self._recover_for(command)
                 for c in before:
                     self._raw_write(c)
                 self._raw_write(command)

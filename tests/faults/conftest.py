@@ -1,0 +1,8 @@
+"""The fault tests import their helpers from fault_kit.py beside this file."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
