@@ -39,8 +39,8 @@ class Curve:
                  sample_id: str | None = None, branch: str | None = None,
                  param_names=None, _where: str = "Curve"):
         where = _where
-        names = tuple(param_names) if param_names is not None else tuple(params)
-        self.spec = doc.check_model(model, list(names), where)
+        names = param_names if param_names is not None else list(params)
+        self.spec = doc.check_model(model, names, where)
         self.model = model
         self.param_names = self.spec.param_names
         self.params = doc.check_params(self.spec, params, where)
@@ -211,6 +211,8 @@ class Curve:
         except json.JSONDecodeError as exc:
             raise CurveDocumentError(f"{where}: not valid JSON ({exc.msg} at line {exc.lineno}, "
                                      f"column {exc.colno})") from None
+        except RecursionError:
+            raise CurveDocumentError(f"{where}: not valid JSON (nested too deeply to be a curve document)") from None
         return cls.from_dict(data, where)
 
     def save(self, path) -> Path:

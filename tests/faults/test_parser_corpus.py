@@ -37,11 +37,8 @@ PARSERS = ("plan", "bench", "curve", "points", "run_json", "library", "parts", "
 # Open bugs in code other helpers own (see the report). Strict: a fix shows as XPASS, so the
 # mark gets removed. fits/ raises, benchkit/library/fitsbridge.py words it for the command line.
 FITS_OPEN = {
-    "curve/deep_nesting.json": "fits.Curve.from_json lets json's RecursionError out: catch it as CurveDocumentError",
-    "curve/param_names_not_list.json": "fits/document.py reads a string param_names as letters ('lists a parameter twice')",
 }
 LIBRARY_OPEN = {
-    "curve/deep_nesting.json": "benchkit/library/fitsbridge.curve_from_json lets json's RecursionError out",
 }
 
 
@@ -145,8 +142,6 @@ def test_curve_document_on_the_command_line_writes_nothing(path, tmp_path, capsy
     assert not out.exists()
 
 
-@pytest.mark.xfail(strict=True, reason="benchkit/library/fitsbridge.curve_from_dict prefixes the file "
-                   "name to a fits message that already starts with it")
 def test_curve_document_message_names_the_file_once(tmp_path, capsys):
     path = CORPUS / "curve" / "range_reversed.json"
     assert main(["export", str(path), "--format", "csv", "--out", str(tmp_path / "x.csv")]) == 2

@@ -1,0 +1,321 @@
+"""`benchkit library ...`: keep, query and share the in-house curve library."""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+
+from benchkit.errors import UserError
+from benchkit.units import arg_type, format_value
+
+LIBRARY_HELP = (
+    "library file (SQLite); default $BENCHKIT_LIBRARY, else ~/.local/share/benchkit/library.sqlite "
+    "($XDG_DATA_HOME/benchkit/library.sqlite when XDG_DATA_HOME is set)"
+)
+
+QUERY_RULES = """\
+Rules of the query:
+  effective capacitance = the differential C(V) of the stored curves (what a meter reads under bias);
+  never extrapolated: a part none of whose curves reaches the bias is listed as NOT COVERED;
+  temperature: curves measured within +-TEMP_TOL (default 2 degC) of --temp answer; otherwise C is
+    interpolated linearly between the nearest curves below and above --temp; a temperature outside
+    the curves a part holds is NOT COVERED (no extrapolation in temperature either);
+  several curves (samples, branches) at one temperature: C = mean, u = sqrt(mean(u_i^2) + spread^2);
+  origins are not mixed: lot summary first, then measured, then supplier claim;
+  ranking: covered parts by C, largest first; then the parts not covered.
+Values take engineering forms: 12, 12V, 4.7u, 4u7, 10uF, 100n."""
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "library", help="keep, query and export the in-house curve library",
+        description="The in-house curve library: parts, runs and fitted curves in one SQLite file "
+                    "that several benches may write at once.",
+        epilog=f"The {LIBRARY_HELP}. Several processes may write one file at once.",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--library", metavar="FILE", default=None, help=LIBRARY_HELP)
+    sub = p.add_subparsers(dest="library_command", metavar="ACTION")
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--library", metavar="FILE", default=argparse.SUPPRESS, help=LIBRARY_HELP)
+
+    def add(name, help_text, **kw):
+        sp = sub.add_parser(name, parents=[common], help=help_text, description=help_text, **kw)
+        return sp
+
+    sp = add("add-parts", "add or update parts from a parts file (the catalogue fields are stored; "
+                          "[part.sim] physics is checked but not stored)")
+    sp.add_argument("parts_file", metavar="PARTS.toml")
+    sp.set_defaults(func=run, action=_add_parts)
+
+    sp = add("add", "add a run directory (fitted, model auto) or a curve document to the library")
+    sp.add_argument("source", metavar="RUN_DIR|CURVE.json")
+    sp.add_argument("--part", metavar="ID", help="part id (default: the run's only part, or the curve's own)")
+    sp.add_argument("--all-parts", action="store_true", help="a run directory: add the curves of every part in it")
+    sp.add_argument("--model", default="auto", help="model to fit a run with (default auto: chosen by the fit)")
+    sp.add_argument("--esr", type=arg_type("ohm", "--esr"), metavar="OHM",
+                    help="series resistance to store with a curve document (a run's own Rs/D is used otherwise)")
+    sp.add_argument("--allow-incomplete", action="store_true",
+                    help="also add a run whose run.json still says 'running'")
+    sp.set_defaults(func=run, action=_add)
+
+    sp = add("list", "list the parts and how many curves each has")
+    sp.add_argument("--case", metavar="CODE", help="only this EIA case code, e.g. 0603")
+    sp.add_argument("--class", dest="class_code", metavar="CODE", help="only this class code, e.g. X7R")
+    sp.set_defaults(func=run, action=_list)
+
+    sp = add("show", "a part's catalogue fields and curves, and a PNG plot of every curve")
+    sp.add_argument("part_id", metavar="ID")
+    sp.add_argument("--plot", metavar="FILE.png", help="plot file (default ./<ID>.png, name made file-safe)")
+    sp.add_argument("--no-plot", action="store_true", help="summary only")
+    sp.set_defaults(func=run, action=_show)
+
+    sp = add("query", "parts ranked by effective capacitance at a bias (and temperature)",
+             epilog=QUERY_RULES, formatter_class=argparse.RawDescriptionHelpFormatter)
+    sp.add_argument("--bias", type=arg_type("V", "--bias"), required=True, metavar="V", help="DC bias, volts")
+    sp.add_argument("--temp", type=arg_type(None, "--temp"), default=25.0, metavar="DEGC",
+                    help="temperature in degC (default 25, the reference temperature)")
+    sp.add_argument("--temp-tol", type=arg_type(None, "--temp-tol"), default=2.0, metavar="DEGC",
+                    help="curves within this many degC of --temp count as measured at it (default 2)")
+    sp.add_argument("--min", dest="min_C", type=arg_type("F", "--min"), metavar="C",
+                    help="only parts giving at least this capacitance, e.g. 2.2u")
+    sp.add_argument("--case", metavar="CODE", help="only this EIA case code, e.g. 0603")
+    sp.add_argument("--class", dest="class_code", metavar="CODE", help="only this class code, e.g. X7R")
+    sp.add_argument("--branch", choices=("rising", "falling"), help="only curves of this sweep branch")
+    sp.add_argument("--origin", choices=("lot summary", "measured", "supplier claim"),
+                    help="only curves of this origin")
+    sp.add_argument("--limit", type=int, metavar="N", help="show the first N parts only")
+    sp.add_argument("--json", action="store_true", help="print the answer as JSON")
+    sp.set_defaults(func=run, action=_query)
+
+    sp = add("remove", "remove a part (with its curves) or one curve")
+    sp.add_argument("part_id", metavar="ID")
+    sp.add_argument("--curve", type=int, metavar="N", help="remove only curve N of the part")
+    sp.set_defaults(func=run, action=_remove)
+
+    sp = add("export", "export a part's curves as csv, json or spice")
+    sp.add_argument("part_id", metavar="ID")
+    sp.add_argument("--format", choices=("csv", "json", "spice"), required=True)
+    sp.add_argument("--out", required=True, metavar="PATH",
+                    help="a file (when one curve is exported) or a folder (one file per curve, "
+                         "named from the part id made file-safe and the curve number)")
+    sp.add_argument("--curve", type=int, metavar="N", help="only curve N of the part")
+    sp.add_argument("--esr", type=arg_type("ohm", "--esr"), metavar="OHM",
+                    help="series resistance for the SPICE model (default: the one stored with the curve)")
+    sp.add_argument("--points", type=int, metavar="N", help="rows of the csv table (default 51)")
+    sp.set_defaults(func=run, action=_export)
+
+    sp = add("import", "merge another library file into this one (what is here already is not added again)")
+    sp.add_argument("other", metavar="OTHER.sqlite")
+    sp.set_defaults(func=run, action=_import)
+
+    p.set_defaults(func=_no_action, parser=p)
+
+
+def _no_action(args) -> int:
+    args.parser.print_help()
+    return 2
+
+
+def _open(args, create: bool):
+    from benchkit.library import Library
+
+    return Library(args.library, create=create)
+
+
+def run(args) -> int:
+    return args.action(args)
+
+
+# -- actions ---------------------------------------------------------------------------------
+def _add_parts(args) -> int:
+    from instruments.sim.parts import PartsFileError, load_parts
+
+    try:
+        parts = load_parts(args.parts_file)
+    except FileNotFoundError:
+        raise UserError(f"{args.parts_file}: no such parts file") from None
+    except PartsFileError as exc:
+        raise UserError(str(exc)) from None
+    with _open(args, create=True) as lib:
+        counts = lib.add_parts(parts.values())
+        print(f"{lib.where}: {counts['added']} parts added, {counts['updated']} updated, "
+              f"{counts['unchanged']} unchanged")
+    return 0
+
+
+def _add(args) -> int:
+    src = Path(args.source)
+    if not src.exists():
+        raise UserError(f"{src}: no such run directory or curve file")
+    if src.is_dir():
+        if args.esr is not None:
+            raise UserError("--esr is for curve documents; a run's own Rs/D readings give its ESR")
+        if args.all_parts and args.part:
+            raise UserError("give --part ID or --all-parts, not both")
+        with _open(args, create=True) as lib:
+            if args.all_parts:
+                from benchkit.library.ingest import parts_in_run
+
+                part_ids = parts_in_run(src)
+                missing = [p for p in part_ids if not lib.has_part(p)]
+                if missing:
+                    lib.part(missing[0])  # the one-line "not in the library" error, before any fit
+            else:
+                part_ids = [args.part]
+            for part_id in part_ids:
+                s = lib.add_run(src, part_id, model=args.model, allow_incomplete=args.allow_incomplete)
+                if s.already_present:
+                    print(f"{src}: run (points sha256 {s.points_sha256[:12]}) of part {s.part_id} is already "
+                          f"in {lib.where}; nothing added")
+                    continue
+                for fc in s.curves:
+                    state = "added" if fc.added else "already present"
+                    print(f"curve {fc.curve_id} ({state}): part {s.part_id}, sample {fc.sample_id}, "
+                          f"{fc.branch}, model {fc.curve.model}, {fc.n_points} points")
+                print(f"{lib.where}: {s.added} curves of part {s.part_id} added from {src}")
+        return 0
+    from benchkit.library.fitsbridge import curve_from_json
+
+    try:
+        text = src.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise UserError(f"{src}: unreadable ({exc})") from None
+    curve = curve_from_json(text, str(src))
+    with _open(args, create=True) as lib:
+        cid, added = lib.add_curve(curve, args.part, esr_ohm=args.esr, where=str(src))
+        print(f"curve {cid} {'added' if added else 'already present'} in {lib.where}")
+    return 0
+
+
+def _list(args) -> int:
+    with _open(args, create=False) as lib:
+        parts = lib.parts(case=args.case, class_code=args.class_code)
+        counts: dict[str, int] = {}
+        for rec in lib.curves():
+            counts[rec.part_id] = counts.get(rec.part_id, 0) + 1
+        if not parts:
+            print(f"{lib.where}: no parts")
+            return 0
+        print(f"{'part':<16} {'nominal':>9} {'rated':>7} {'class':<5} {'case':<5} {'curves':>6}  description")
+        for p in parts:
+            nominal = format_value(p.nominal_C_F, "F") if p.nominal_C_F else "?"
+            rated = format_value(p.rated_V, "V") if p.rated_V else "?"
+            print(f"{p.part_id:<16} {nominal:>9} {rated:>7} {p.class_code or '':<5} {p.case or '':<5} "
+                  f"{counts.get(p.part_id, 0):>6}  {p.description}")
+    return 0
+
+
+def _show(args) -> int:
+    from benchkit.exports.paths import safe_stem
+    from benchkit.library.plot import plot_part
+
+    with _open(args, create=False) as lib:
+        part = lib.part(args.part_id)
+        records = lib.curves(part.part_id)
+        print(f"part {part.part_id}: {part.description}")
+        for name, value in (("nominal", format_value(part.nominal_C_F, "F") if part.nominal_C_F else None),
+                            ("tolerance", part.tolerance), ("rated", format_value(part.rated_V, "V")
+                                                            if part.rated_V else None),
+                            ("class", part.class_code), ("case", part.case), ("supplier", part.supplier)):
+            print(f"  {name:<10} {value if value is not None else '?'}")
+        if not records:
+            print("  no curves")
+        for rec in records:
+            c = rec.curve
+            lo, hi = rec.valid_range_V
+            stats = getattr(c, "stats", None) or {}
+            r2 = stats.get("r2")
+            print(f"  curve {rec.curve_id}: {rec.origin}, sample {rec.sample_id or '-'}, {rec.branch or '-'}, "
+                  f"{rec.temp_C:g} degC, model {rec.model}, {lo:g}..{hi:g} V, "
+                  f"C({lo:g} V) = {format_value(float(c.C(lo)), 'F')}, C({hi:g} V) = "
+                  f"{format_value(float(c.C(hi)), 'F')}" + (f", r2 {r2:.5f}" if isinstance(r2, float) else ""))
+        if not args.no_plot:
+            target = Path(args.plot) if args.plot else Path.cwd() / f"{safe_stem(part.part_id)}.png"
+            plot_part(part, records, target)
+            print(f"plot: {target}")
+    return 0
+
+
+def _query(args) -> int:
+    with _open(args, create=False) as lib:
+        results = lib.query(args.bias, args.temp, min_C_F=args.min_C, case=args.case, class_code=args.class_code,
+                            branch=args.branch, origin=args.origin, temp_tol_C=args.temp_tol, limit=args.limit)
+    if args.json:
+        print(json.dumps([{"part_id": r.part_id, "covered": r.covered, "C_F": r.C_F, "u_C_F": r.u_C_F,
+                           "origin": r.origin, "n_curves": r.n_curves, "curve_ids": list(r.curve_ids),
+                           "temps_C": list(r.temps_C), "reason": r.reason} for r in results], indent=2))
+        return 0
+    head = f"C at {args.bias:g} V, {args.temp:g} degC"
+    covered = [r for r in results if r.covered]
+    print(f"{'rank':>4}  {'part':<16} {head:>24} {'u(C)':>10} {'of nominal':>10}  {'origin':<14} curves")
+    for i, r in enumerate(covered, start=1):
+        u = format_value(r.u_C_F, "F") if r.u_C_F is not None else "n/a"
+        pct = f"{r.retained_pct:.1f} %" if r.retained_pct is not None else "?"
+        print(f"{i:>4}  {r.part_id:<16} {format_value(r.C_F, 'F'):>24} {u:>10} {pct:>10}  {r.origin:<14} "
+              f"{r.n_curves}")
+    rest = [r for r in results if not r.covered]
+    if rest:
+        print("not covered:")
+        for r in rest:
+            print(f"      {r.part_id:<16} {r.reason}")
+    if not results:
+        print("no parts match")
+    return 0
+
+
+def _remove(args) -> int:
+    with _open(args, create=False) as lib:
+        if args.curve is not None:
+            rec = lib.curve(args.curve)
+            if rec.part_id != args.part_id:
+                raise UserError(f"curve {args.curve} belongs to part {rec.part_id!r}, not {args.part_id!r}; "
+                                f"nothing removed")
+            lib.remove_curve(args.curve)
+            print(f"curve {args.curve} of part {args.part_id} removed")
+        else:
+            n = lib.remove_part(args.part_id)
+            print(f"part {args.part_id} removed with {n} curves")
+    return 0
+
+
+def _export(args) -> int:
+    from benchkit.atomic import write_text_atomic
+    from benchkit.exports import SUFFIX, render
+    from benchkit.exports.paths import inside, safe_stem
+
+    with _open(args, create=False) as lib:
+        part = lib.part(args.part_id)
+        records = lib.curves(part.part_id)
+        if args.curve is not None:
+            records = [r for r in records if r.curve_id == args.curve]
+            if not records:
+                raise UserError(f"part {part.part_id!r} has no curve {args.curve}; see 'benchkit library show ID'")
+        if not records:
+            raise UserError(f"part {part.part_id!r} has no curves to export")
+        out = Path(args.out)
+        as_file = len(records) == 1 and not out.is_dir() and out.suffix != ""
+        if not as_file and out.exists() and not out.is_dir():
+            raise UserError(f"--out {out}: several curves need a folder, and this is a file")
+        # render everything before writing anything: a bad curve leaves no partial set of files
+        jobs = []
+        for rec in records:
+            target = out if as_file else inside(out, f"{safe_stem(part.part_id)}_c{rec.curve_id}{SUFFIX[args.format]}")
+            jobs.append((rec, target))
+        texts = [render(rec.curve, args.format, esr_ohm=args.esr if args.esr is not None else rec.esr_ohm,
+                        n_points=args.points, name=part.part_id,
+                        source_note=f"library {lib.where} curve {rec.curve_id}; run {rec.run_path or '-'}")
+                 for rec, _ in jobs]
+        for (rec, target), text in zip(jobs, texts):
+            write_text_atomic(target, text)
+            print(f"curve {rec.curve_id} -> {target}")
+    return 0
+
+
+def _import(args) -> int:
+    with _open(args, create=True) as lib:
+        s = lib.import_library(args.other)
+        print(f"{lib.where}: from {args.other}: {s.parts_added} parts, {s.runs_added} runs, "
+              f"{s.curves_added} curves added; {s.curves_present} curves were already here"
+              + (f"; {s.parts_kept} parts differ there and were kept as here" if s.parts_kept else ""))
+    return 0

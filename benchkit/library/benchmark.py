@@ -1,0 +1,114 @@
+"""Benchmark of the library query: vectorised by model against a per-curve Python loop.
+
+Not a test (times are never asserted): `make bench` calls benchmark_query(n) and prints it.
+The synthetic library is invented data: n curves spread over n/20 parts, half tanh and half
+landau-type, at four temperatures, with a diagonal covariance of 1 % per parameter.
+"""
+
+from __future__ import annotations
+
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from benchkit.library.store import Library
+
+TEMPS_C = (-55.0, 25.0, 85.0, 125.0)
+
+
+def synthetic_documents(n_curves: int, seed: int = 0) -> tuple[list[dict], list[dict]]:
+    """(parts, curve documents) of an invented library (parts BD-Sxxxxx)."""
+    rng = np.random.default_rng(seed)
+    n_parts = max(1, n_curves // 20)
+    parts = []
+    for i in range(n_parts):
+        c0 = float(rng.choice([1e-6, 2.2e-6, 4.7e-6, 10e-6, 22e-6]))
+        parts.append({"id": f"BD-S{i:05d}", "description": "synthetic benchmark part", "nominal_C_F": c0,
+                      "tolerance": "K", "rated_V": float(rng.choice([6.3, 10, 16, 25, 50])),
+                      "class_code": str(rng.choice(["X5R", "X7R"])),
+                      "case": str(rng.choice(["0402", "0603", "0805", "1206"])), "supplier": "invented"})
+    docs = []
+    for j in range(n_curves):
+        part = parts[j % n_parts]
+        c0 = part["nominal_C_F"] * float(rng.uniform(0.8, 1.2))
+        hi = part["rated_V"]
+        if j % 2 == 0:
+            params = {"C_inf_F": c0 * float(rng.uniform(0.05, 0.3)), "C_pk_F": c0,
+                      "V0_V": hi * float(rng.uniform(0.2, 0.8)), "V_off_V": float(rng.uniform(-0.2, 0.2))}
+            model = "tanh"
+        else:
+            params = {"C0_F": c0, "V_k_V": hi * float(rng.uniform(0.1, 0.5)), "C_p_F": c0 * 0.05}
+            model = "landau"
+        names = list(params)
+        cov = np.diag([(0.01 * abs(v)) ** 2 if v else 1e-8 for v in params.values()]).tolist()
+        docs.append({
+            "format": "benchkit-curve", "version": 1, "model": model, "param_names": names, "params": params,
+            "covariance": cov, "valid_range_V": [0.0, hi],
+            "conditions": {"freq_Hz": 1000.0, "ac_level_Vrms": 1.0, "temp_C": TEMPS_C[(j // n_parts) % 4],
+                           "function": "CPD"},
+            "stats": {"n_points": 20}, "source": {"run_id": f"synthetic-{j}", "sample_id": f"S{j}",
+                                                  "part_id": part["id"], "branch": "rising",
+                                                  "points_sha256": None},
+            "origin": "measured", "part_id": part["id"], "sample_id": f"S{j}", "branch": "rising",
+        })
+    return parts, docs
+
+
+def benchmark_query(n_curves: int = 100_000, *, bias_V: float = 5.0, temp_C: float = 85.0,
+                    seed: int = 0, folder: str | Path | None = None) -> dict:
+    """Build a temporary library of n synthetic curves; time the query and a per-curve loop.
+
+    Returns build_s, query_cold_s (first query of a freshly opened Library: the arrays are
+    loaded from the file, then evaluated; imports done beforehand), query_warm_s (cached
+    arrays, best of 3), loop_s (one Curve.C(bias) call per curve inside its valid range),
+    loop_over_query (loop_s / query_warm_s), and the sizes.
+    """
+    from benchkit.library import query, table  # noqa: F401 - imported before timing: not query time
+    from benchkit.library.fitsbridge import curve_from_dict, model_spec
+
+    model_spec("tanh")  # imports fits (numpy/scipy) before any clock starts
+    parts, docs = synthetic_documents(n_curves, seed)
+    with tempfile.TemporaryDirectory(dir=folder) as tmp:
+        t0 = time.perf_counter()
+        with Library(Path(tmp) / "bench.sqlite") as lib:
+            lib.add_parts(parts)
+            lib._insert_trusted(docs)  # invented, self-generated documents: no per-curve validation
+            build_s = time.perf_counter() - t0
+        with Library(Path(tmp) / "bench.sqlite", create=False) as lib:
+            t0 = time.perf_counter()
+            results = lib.query(bias_V, temp_C)
+            cold_s = time.perf_counter() - t0
+            warm = []
+            for _ in range(3):
+                t0 = time.perf_counter()
+                lib.query(bias_V, temp_C)
+                warm.append(time.perf_counter() - t0)
+            warm_s = min(warm)
+        curves = [curve_from_dict(d, "benchmark") for d in docs]
+        t0 = time.perf_counter()
+        total = 0.0
+        for c in curves:
+            lo, hi = c.valid_range_V
+            if lo <= bias_V <= hi:
+                total += float(c.C(bias_V))
+        loop_s = time.perf_counter() - t0
+    return {
+        "n_curves": n_curves,
+        "n_parts": len(parts),
+        "covered_parts": sum(1 for r in results if r.covered),
+        "build_s": build_s,
+        "query_cold_s": cold_s,
+        "query_warm_s": warm_s,
+        "loop_s": loop_s,
+        "loop_over_query": loop_s / warm_s if warm_s > 0 else float("inf"),
+        "loop_over_cold_query": loop_s / cold_s if cold_s > 0 else float("inf"),
+    }
+
+
+if __name__ == "__main__":  # pragma: no cover
+    import json
+    import sys
+
+    print(json.dumps(benchmark_query(int(sys.argv[1]) if len(sys.argv) > 1 else 100_000), indent=2))

@@ -1,0 +1,138 @@
+"""From a run directory to stored curves: read points.csv, fit each sample's branches, store all at once.
+
+The run's identity is the sha256 of its points.csv: the same data added twice (by one bench
+or two) is stored once. Each sample of the asked part is fitted as `benchkit fit` fits it:
+both sweep branches together (fits.fit_branches, model "auto" unless told), weighted by
+C_std_F/sqrt(n_readings) (CONTRACTS.md section 5), points flagged `overload` left out.
+The series resistance stored with a curve (for the SPICE export) is the median Rs over the
+fitted points, or D/(2*pi*f*Cs) when only D was read (Cs = Cp*(1 + D^2) for a parallel
+reading) [published: impedance-measurement handbook relations].
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from benchkit import runlog
+from benchkit.errors import UserError
+from benchkit.library import fitsbridge
+from benchkit.library.store import Library, RunInfo
+
+SKIP_FLAGS = {"overload"}
+
+
+@dataclass
+class FittedCurve:
+    sample_id: str
+    branch: str
+    curve: object
+    esr_ohm: float | None
+    n_points: int
+    curve_id: int | None = None
+    added: bool = False
+
+
+@dataclass
+class AddRunSummary:
+    run_dir: Path
+    part_id: str
+    points_sha256: str
+    already_present: bool
+    curves: list[FittedCurve] = field(default_factory=list)
+
+    @property
+    def added(self) -> int:
+        return sum(1 for c in self.curves if c.added)
+
+
+def _float(text: str) -> float:
+    try:
+        return float(text) if text != "" else math.nan
+    except ValueError:
+        return math.nan
+
+
+def esr_estimate(rows: list[dict[str, str]]) -> float | None:
+    """Median series resistance of the rows (Rs, else from D), None if neither was read."""
+    rs = np.array([_float(r["Rs_ohm"]) for r in rows])
+    rs = rs[np.isfinite(rs) & (rs > 0)]
+    if rs.size:
+        return float(np.median(rs))
+    vals = []
+    for r in rows:
+        D, f, C = _float(r["D"]), _float(r["freq_Hz"]), _float(r["C_F"])
+        if not (math.isfinite(D) and math.isfinite(f) and math.isfinite(C) and D > 0 and f > 0 and C > 0):
+            continue
+        Cs = C * (1.0 + D * D) if r["function"].upper().startswith("CP") else C  # Cs = Cp*(1 + D^2)
+        vals.append(D / (2.0 * math.pi * f * Cs))  # D = w*Cs*Rs
+    return float(np.median(vals)) if vals else None
+
+
+def _fit_reader():
+    """The run-directory reader of `benchkit fit` (benchkit/commands/fit.py), reused on purpose:
+    the library fits exactly the points, weights and conditions `benchkit fit` does, so a run
+    added directly and the curve file `benchkit fit` wrote from it are the same curve (same
+    content hash, stored once)."""
+    from benchkit.commands import fit as fit_command
+
+    return fit_command._read_samples, fit_command._conditions
+
+
+def parts_in_run(run_dir: Path) -> list[str]:
+    """The part ids a run directory has points of, sorted."""
+    rows, _ = runlog.read_points(run_dir)
+    return sorted({r["part_id"] for r in rows if r["part_id"]})
+
+
+def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str = "auto",
+                allow_incomplete: bool = False) -> AddRunSummary:
+    read_samples, conditions_of = _fit_reader()
+    meta = runlog.read_run(run_dir)
+    status = meta.get("status")
+    if status == "running" and not allow_incomplete:
+        raise UserError(f"{run_dir}: run.json says the run is still running (or it crashed); "
+                        f"finish or resume it first, or add it anyway with --allow-incomplete")
+    meta, points_path, samples, _left_out = read_samples(Path(run_dir), None, set(SKIP_FLAGS))
+    sha = runlog.sha256_file(points_path)
+    if meta.get("points_sha256") and meta["points_sha256"] != sha:
+        raise UserError(f"{points_path}: sha256 differs from the one in run.json; the points were "
+                        f"changed after the run ended, so they are not added")
+    in_run = sorted({s["part_id"] for s in samples.values() if s["part_id"]})
+    if part_id is None:
+        if len(in_run) != 1:
+            raise UserError(f"{run_dir}: the run holds parts {', '.join(in_run) or '(none named)'}; "
+                            f"choose one with --part ID, or add them all with --all-parts")
+        part_id = in_run[0]
+    if part_id not in in_run:
+        raise UserError(f"{run_dir}: the run has no points of part {part_id!r}; it holds {', '.join(in_run)}")
+    if not lib.has_part(part_id):
+        lib.part(part_id)  # raises the one-line "not in the library" error
+    summary = AddRunSummary(Path(run_dir), part_id, sha, lib.has_run(sha, part_id))
+    if summary.already_present:
+        return summary
+    for sample_id in sorted(samples):
+        smp = samples[sample_id]
+        if smp["part_id"] != part_id:
+            continue
+        source = {"points_sha256": sha, "run_id": meta.get("run_id"), "sample_id": sample_id,
+                  "part_id": part_id}
+        try:
+            outcome = fitsbridge.fit_branches(
+                smp["V"], smp["C"], smp["branch"], smp["sigma"], model=model,
+                conditions=conditions_of(meta, smp["rows"], smp["temp"]), source=source,
+                part_id=part_id, sample_id=sample_id)
+        except fitsbridge.fits_errors() as exc:
+            raise UserError(f"{points_path}: sample {sample_id}: {exc}") from None
+        for branch, curve in outcome.curves.items():
+            brows = [r for r in smp["rows"] if r["branch"] == branch]
+            summary.curves.append(FittedCurve(sample_id, branch, curve, esr_estimate(brows), len(brows)))
+    run = RunInfo(sha, meta.get("run_id"), str(Path(run_dir).resolve()), status, meta)
+    ids = lib.add_curves([(fc.curve, fc.esr_ohm) for fc in summary.curves], part_id=part_id, run=run,
+                         where=str(run_dir))
+    for fc, (cid, added) in zip(summary.curves, ids):
+        fc.curve_id, fc.added = cid, added
+    return summary

@@ -1,0 +1,209 @@
+"""Every stored curve as stacked numpy arrays, grouped by model, for the vectorised query.
+
+Why: design queries ask "what does each part give at 12 V, 85 degC" over the whole library.
+One numpy call per model over stacked parameter arrays (fits models broadcast their
+parameters) is hundreds of times faster than a Python loop over curve objects. The table is
+cached on the Library object and rebuilt when the file's generation counter moves (any
+process's commit moves it).
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from benchkit.errors import UserError
+from benchkit.library import fitsbridge, schema
+from benchkit.library.records import PartRecord
+
+BRANCH_CODES = {None: 0, "": 0, "rising": 1, "falling": 2}
+
+
+def branch_code(branch: str | None) -> int:
+    return BRANCH_CODES.get(branch, 3)
+
+
+@dataclass
+class ModelGroup:
+    """Curves of one model variant: rows into the table, parameters (n, k), covariance (n, k, k)."""
+
+    model: str
+    param_names: tuple[str, ...]
+    spec: object
+    rows: np.ndarray
+    P: np.ndarray
+    cov: np.ndarray
+
+    def evaluate(self, V: float) -> tuple[np.ndarray, np.ndarray]:
+        """C and its standard uncertainty u_C = sqrt(J Sigma J^T) for every curve of the group at V.
+
+        J = dC/dp by central differences over the whole stack at once; the step follows
+        fits.models.base.ModelSpec.jacobian (1e-6 of the parameter, or of the typical size of
+        its kind when it is 0), so the answer matches Curve.u_C to the differencing error.
+        """
+        names = self.param_names
+        cols = {n: self.P[:, j] for j, n in enumerate(names)}
+        nrow = self.P.shape[0]
+        with np.errstate(all="ignore"):
+            C = np.broadcast_to(np.asarray(self.spec.C(V, **cols), dtype=float), (nrow,))
+            diag = np.diagonal(self.cov, axis1=1, axis2=2)
+            # parameters held fixed in every fit (variance 0, e.g. poly V_scale_V, table knots)
+            # contribute nothing: skip their derivative (saves model calls).
+            active = [j for j in range(len(names)) if np.any(np.nan_to_num(diag[:, j]) != 0.0)]
+            cap = [j for j, n in enumerate(names) if n.endswith("_F")]
+            cap_size = np.max(np.abs(self.P[:, cap]), axis=1) if cap else np.ones(nrow)
+            cap_size = np.maximum(cap_size, 1e-30)
+            J = np.zeros((nrow, len(active)))
+            for col, j in enumerate(active):
+                n = names[j]
+                p = self.P[:, j]
+                typical = cap_size if n.endswith("_F") else 1.0
+                h = 1e-6 * np.where(p != 0.0, np.abs(p), typical)
+                up = dict(cols)
+                up[n] = p + h
+                dn = dict(cols)
+                dn[n] = p - h
+                J[:, col] = (np.asarray(self.spec.C(V, **up)) - np.asarray(self.spec.C(V, **dn))) / (2.0 * h)
+            sub = self.cov[:, active][:, :, active]
+            var = np.einsum("ni,nij,nj->n", J, sub, J)
+            u = np.sqrt(np.clip(var, 0.0, None))
+            u[np.any(np.isnan(self.cov.reshape(nrow, -1)), axis=1)] = np.nan  # no covariance stored
+        return C, u
+
+
+@dataclass
+class CurveTable:
+    generation: int
+    parts: list[PartRecord]
+    part_case: np.ndarray
+    part_class: np.ndarray
+    curve_id: np.ndarray
+    part_index: np.ndarray
+    origin_rank: np.ndarray
+    branch: np.ndarray
+    temp_C: np.ndarray
+    lo_V: np.ndarray
+    hi_V: np.ndarray
+    groups: list[ModelGroup]
+    loose: list[tuple[int, str]] = field(default_factory=list)  # (row, document): evaluated one by one
+    _loose_curves: dict = field(default_factory=dict)
+
+    @property
+    def n(self) -> int:
+        return int(self.curve_id.size)
+
+    def evaluate(self, V: float) -> tuple[np.ndarray, np.ndarray]:
+        """C_F and u_C_F of every curve at V (NaN where a curve cannot say: outside its range, unknown model)."""
+        C = np.full(self.n, np.nan)
+        u = np.full(self.n, np.nan)
+        for g in self.groups:
+            c, uu = g.evaluate(V)
+            C[g.rows] = c
+            u[g.rows] = uu
+        for row, doc in self.loose:
+            if not (self.lo_V[row] <= V <= self.hi_V[row]):
+                continue
+            curve = self._loose_curves.get(row)
+            if curve is None:
+                try:
+                    curve = fitsbridge.curve_from_json(doc, f"library curve {self.curve_id[row]}")
+                except UserError:
+                    continue
+                self._loose_curves[row] = curve
+            try:
+                C[row] = float(curve.C(V))
+                u[row] = float(curve.u_C(V))
+            except fitsbridge.fits_errors():
+                continue
+        return C, u
+
+
+def _ints(text: str | None, n: int) -> np.ndarray:
+    if n == 0:
+        return np.zeros(0, dtype=np.int64)
+    out = np.fromstring(text, dtype=np.int64, sep=",")  # text mode (sep given): parsed in C
+    if out.size != n:  # pragma: no cover - a damaged file
+        raise UserError("library table: row count mismatch while loading; the file may be damaged")
+    return out
+
+
+# One aggregate row per model variant. All aggregates of one SELECT see the rows in the same
+# order (SQLite feeds each row to every aggregate in one pass), so the columns line up. Numbers
+# come as hex of their float64 blobs (exact, no decimal round trip): the whole library arrives
+# as a few long strings that numpy parses in C, not as 100,000 Python tuples.
+_GROUP_SQL = (
+    "SELECT count(*), group_concat(c.id), group_concat(c.part_id, char(31)), "
+    "group_concat(hex(c.numbers_f64), ''), group_concat(hex(c.params_f64), ''), "
+    "group_concat(hex(coalesce(c.covariance_f64, ?)), '') "
+    "FROM curve c WHERE c.model = ? AND c.param_names = ? AND c.params_f64 IS NOT NULL"
+)
+N_NUMBERS = 5  # valid_lo_V, valid_hi_V, temp_C, origin rank, branch code (schema.py)
+
+
+def load_table(conn, generation: int) -> CurveTable:
+    """Read parts and curves (inside one read snapshot) into arrays."""
+    parts = [PartRecord(*r) for r in conn.execute(
+        "SELECT part_id, description, nominal_C_F, tolerance, rated_V, class_code, case_code, supplier "
+        "FROM part ORDER BY part_id")]
+    index = {p.part_id: i for i, p in enumerate(parts)}
+
+    def part_index(text: str, n: int) -> np.ndarray:
+        # part ids hold no control characters (records.check_part_id): char(31) separates them
+        ids = text.split("\x1f")
+        if len(ids) != n:  # pragma: no cover - a damaged file
+            raise UserError("library table: row count mismatch while loading; the file may be damaged")
+        return np.array([index[x] for x in ids], dtype=np.int64)
+
+    chunks: dict[str, list[np.ndarray]] = {k: [] for k in
+                                           ("id", "part", "origin", "branch", "temp", "lo", "hi")}
+    groups: list[ModelGroup] = []
+    start = 0
+    variants = conn.execute(
+        "SELECT DISTINCT model, param_names FROM curve ORDER BY model, param_names"
+    ).fetchall()
+    for model, names in variants:
+        pnames = tuple(json.loads(names))
+        k = len(pnames)
+        nan_cov = np.full(k * k, np.nan).astype("<f8").tobytes()
+        (n, ids, pids, nhex, phex, chex) = conn.execute(_GROUP_SQL, (nan_cov, model, names)).fetchone()
+        if n == 0:
+            continue
+        numbers = np.frombuffer(bytes.fromhex(nhex), dtype="<f8").reshape(n, N_NUMBERS).astype(float)
+        chunks["id"].append(_ints(ids, n))
+        chunks["part"].append(part_index(pids, n))
+        chunks["lo"].append(numbers[:, 0])
+        chunks["hi"].append(numbers[:, 1])
+        chunks["temp"].append(numbers[:, 2])
+        chunks["origin"].append(numbers[:, 3].astype(np.int64))
+        chunks["branch"].append(numbers[:, 4].astype(np.int64))
+        rows = np.arange(start, start + n, dtype=np.int64)
+        start += n
+        try:
+            spec = fitsbridge.model_spec(model, pnames)
+        except UserError:
+            continue  # a model this benchkit does not know: its curves stay NaN (not covered)
+        P = np.frombuffer(bytes.fromhex(phex), dtype="<f8").reshape(n, k).astype(float)
+        cov = np.frombuffer(bytes.fromhex(chex), dtype="<f8").reshape(n, k, k).astype(float)
+        groups.append(ModelGroup(model, pnames, spec, rows, P, cov))
+    # curves whose parameters are not plain numbers: evaluated one by one through fits.Curve
+    rank = {o: i for i, o in enumerate(schema.ORIGINS)}
+    loose = []
+    for cid, pid, origin, br, t, lo, hi, doc in conn.execute(
+            "SELECT c.id, c.part_id, c.origin, c.branch, c.temp_C, c.valid_lo_V, c.valid_hi_V, d.document "
+            "FROM curve c JOIN curve_doc d ON d.curve_id = c.id WHERE c.params_f64 IS NULL ORDER BY c.id"):
+        for key, value in (("id", cid), ("part", index[pid]), ("origin", rank[origin]),
+                           ("branch", branch_code(br)), ("temp", t), ("lo", lo), ("hi", hi)):
+            chunks[key].append(np.array([value]))
+        loose.append((start, doc))
+        start += 1
+
+    def cat(key, dtype):
+        return np.concatenate(chunks[key]).astype(dtype) if chunks[key] else np.zeros(0, dtype=dtype)
+
+    part_case = np.array([p.case or "" for p in parts], dtype=object)
+    part_class = np.array([p.class_code or "" for p in parts], dtype=object)
+    return CurveTable(generation, parts, part_case, part_class, cat("id", np.int64), cat("part", np.int64),
+                      cat("origin", np.int64), cat("branch", np.int64), cat("temp", float), cat("lo", float),
+                      cat("hi", float), groups, loose)

@@ -1,0 +1,15 @@
+"""benchmark_query (for `make bench`) runs and reports; no wall-clock time is asserted (team rule)."""
+
+from __future__ import annotations
+
+from benchkit.library import benchmark_query
+
+
+def test_benchmark_query_small(tmp_path):
+    out = benchmark_query(400, folder=tmp_path)
+    assert out["n_curves"] == 400 and out["n_parts"] == 20
+    assert out["covered_parts"] == 20  # every synthetic part has curves at 85 degC reaching 5 V
+    for key in ("build_s", "query_cold_s", "query_warm_s", "loop_s"):
+        assert out[key] > 0
+    assert out["loop_over_query"] == out["loop_s"] / out["query_warm_s"]
+    assert list(tmp_path.iterdir()) == []  # the temporary library is gone
