@@ -8,6 +8,7 @@ applied; an address that is malformed, refused or silent is bad input: one line,
 from __future__ import annotations
 
 import contextlib
+import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -119,9 +120,14 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
                 raise UserError(f"{where}: channel entry {i}: field '{name}' must be a non-empty string")
         if ch in seen_ch or sid in seen_id:
             raise UserError(f"{where}: channel entry {i}: channel {ch} or sample {sid!r} appears twice")
+        age = c.get("hours_since_heat_h")
+        if age is not None and (isinstance(age, bool) or not isinstance(age, (int, float))
+                                or not math.isfinite(age) or age <= 0):
+            raise UserError(f"{where}: channel entry {i}: field 'hours_since_heat_h' must be a "
+                            "positive number of hours since the last de-aging heat")
         seen_ch.add(ch)
         seen_id.add(sid)
-        channels.append(SampleRef(sid, pid, ch))
+        channels.append(SampleRef(sid, pid, ch, None if age is None else float(age)))
     return BenchFile(where, instruments, tuple(sorted(channels, key=lambda s: s.channel)))
 
 

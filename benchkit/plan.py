@@ -20,6 +20,13 @@ Layout (every field in SI units; see data/plans/demo.toml):
     [measure]
     dwell_s = 2.0; dwell = "fixed"; n_readings = 3
     function = "CPD"; freq_Hz = 1000.0; ac_level_Vrms = 1.0   # optional: default = standard
+    [settle]                         # with dwell = "settle" (benchkit/settle.py)
+    max_drift_pct_per_s = 0.01; max_dwell_s = 60.0   # or max_residual_pct_of_reading, or both
+    max_residual_pct_of_reading = 0.1; max_tau_s = 20.0
+    min_dwell_s = 0.5; window_s = 2.0; read_interval_s = 0.0
+    [adaptive]                       # optional: adaptive bias steps (benchkit/adaptive.py)
+    target_band_pct_of_C0 = 0.5; max_points = 40; coarse_points = 7
+    coverage_k = 2.0; resolution_V = 0.05; model = "auto"
     [limits]
     current_limit_A = 0.01; max_ramp_V_per_s = 2.0
     discharge_wait_s = 5.0           # or discharge_R_ohm: then R*C*ln(V0/V_safe)
@@ -47,7 +54,7 @@ PLAN_VERSION = 1
 BRANCHES = ("rising", "falling")
 POLARITIES = ("positive", "negative", "both")
 FUNCTIONS = ("CPD", "CSD", "CSRS")
-DWELL_POLICIES = ("fixed",)  # settle detection joins here
+DWELL_POLICIES = ("fixed", "settle")  # "settle": benchkit/settle.py, needs a [settle] table
 METER_FREQ_RANGE_HZ = (20.0, 2e6)  # generic command set, instruments/COMMANDS.md
 METER_LEVEL_RANGE_VRMS = (0.005, 2.0)
 _POINT_TOL_V = 1e-9
@@ -63,6 +70,7 @@ class SampleRef:
     sample_id: str
     part_id: str
     channel: int
+    hours_since_heat_h: float | None = None  # age since the last de-aging heat, at run start
 
 
 @dataclass(frozen=True)
@@ -96,6 +104,9 @@ class SampleSweep:
     part: Any  # a catalogue PartSpec (id, nominal_C_F, rated_V, class_code, ...)
     conditions: MeterConditions
     points: tuple[PlannedPoint, ...]
+    # adaptive steps: a benchkit.adaptive.LoopPlanner; `points` is then its first (coarse)
+    # pass and the engine asks it for each further pass
+    adaptive: Any = None
 
 
 @dataclass(frozen=True)
@@ -130,6 +141,16 @@ class Plan:
     @property
     def limits(self) -> dict:
         return self.data["limits"]
+
+    @property
+    def settle(self) -> dict | None:
+        """The [settle] table (dwell = "settle"), or None."""
+        return self.data.get("settle")
+
+    @property
+    def adaptive(self) -> dict | None:
+        """The [adaptive] table (adaptive bias steps), or None."""
+        return self.data.get("adaptive")
 
     @property
     def n_readings(self) -> int:
@@ -232,6 +253,23 @@ def parse_plan(raw: Mapping, where: str) -> Plan:
     data["bias"] = _parse_bias(top.table("bias", required=True), where)
     data["measure"] = _parse_measure(top.table("measure", required=True), where)
     data["limits"] = _parse_limits(top.table("limits", required=True), where)
+    # optional tables are stored only when given, so plans without them keep their hash
+    settle = top.take("settle", default=None)
+    if data["measure"]["dwell"] == "settle" and settle is None:
+        raise UserError(f"{where}: field 'settle': missing; measure.dwell = \"settle\" needs a [settle] "
+                        "table with max_drift_pct_per_s and max_dwell_s")
+    if settle is not None:
+        if data["measure"]["dwell"] != "settle":
+            raise UserError(f"{where}: field 'settle': given but measure.dwell is "
+                            f"{data['measure']['dwell']!r}; set dwell = \"settle\" or remove [settle]")
+        if not isinstance(settle, Mapping):
+            raise UserError(f"{where}: field 'settle': must be a table [settle]")
+        data["settle"] = _parse_settle(settle, where)
+    adaptive = top.take("adaptive", default=None)
+    if adaptive is not None:
+        if not isinstance(adaptive, Mapping):
+            raise UserError(f"{where}: field 'adaptive': must be a table [adaptive]")
+        data["adaptive"] = _parse_adaptive(adaptive, data["bias"], where)
     top.done()
     return Plan(source=where, data=data)
 
@@ -253,6 +291,9 @@ def _parse_samples(value: Any, where: str) -> list[dict] | None:
             "part_id": f.string("part_id", required=True, nonempty=True),
             "channel": f.integer("channel", required=True, lo=1),
         }
+        age = f.number("hours_since_heat_h", positive=True)
+        if age is not None:  # verify refers readings to the claim's age with the aging law
+            s["hours_since_heat_h"] = age
         f.done()
         if s["sample_id"] in ids:
             raise UserError(f"{where}: field 'samples[{i}].sample_id': {s['sample_id']!r} appears twice")
@@ -323,7 +364,8 @@ def _parse_measure(raw: Mapping, where: str) -> dict:
     f = _Fields(raw, where, "measure.")
     m = {
         "dwell": f.choice("dwell", DWELL_POLICIES, default="fixed"),
-        "dwell_s": f.number("dwell_s", required=True, lo=0.0),
+        # a settle policy takes its times from [settle]; a fixed dwell needs its dwell_s
+        "dwell_s": f.number("dwell_s", required=raw.get("dwell", "fixed") == "fixed", lo=0.0),
         "n_readings": f.integer("n_readings", default=3, lo=1, hi=1000),
         "function": None if raw.get("function") is None else f.choice("function", FUNCTIONS, upper=True),
         "freq_Hz": f.number("freq_Hz", default=None, lo=METER_FREQ_RANGE_HZ[0], hi=METER_FREQ_RANGE_HZ[1]),
@@ -332,6 +374,69 @@ def _parse_measure(raw: Mapping, where: str) -> dict:
     f.seen("function")
     f.done()
     return m
+
+
+def _parse_settle(raw: Mapping, where: str) -> dict:
+    """[settle]: the thresholds of settle detection (benchkit/settle.py)."""
+    f = _Fields(raw, where, "settle.")
+    st = {
+        # either threshold, or both: the drift rate, or the residual left (settle.py docstring)
+        "max_residual_pct_of_reading": f.number("max_residual_pct_of_reading", default=None,
+                                                positive=True),
+        "max_tau_s": f.number("max_tau_s", default=20.0, positive=True),
+    }
+    st["max_drift_pct_per_s"] = f.number("max_drift_pct_per_s",
+                                         required=st["max_residual_pct_of_reading"] is None,
+                                         positive=True)
+    st.update({
+        "max_dwell_s": f.number("max_dwell_s", required=True, positive=True),
+        "min_dwell_s": f.number("min_dwell_s", default=0.5, lo=0.0),
+        "window_s": f.number("window_s", default=2.0, positive=True),
+        "read_interval_s": f.number("read_interval_s", default=0.0, lo=0.0),
+    })
+    f.done()
+    if st["min_dwell_s"] > st["max_dwell_s"]:
+        raise UserError(f"{where}: field 'settle.min_dwell_s': {st['min_dwell_s']:g} s is above "
+                        f"max_dwell_s ({st['max_dwell_s']:g} s); lower it or raise max_dwell_s")
+    return st
+
+
+def _parse_adaptive(raw: Mapping, bias: Mapping, where: str) -> dict:
+    """[adaptive]: the target and budget of adaptive bias steps (benchkit/adaptive.py)."""
+    f = _Fields(raw, where, "adaptive.")
+    ad = {
+        "target_band_pct_of_C0": f.number("target_band_pct_of_C0", required=True, positive=True),
+        "max_points": f.integer("max_points", default=40, lo=3, hi=10000),
+        "coarse_points": f.integer("coarse_points", default=7, lo=3, hi=1000),
+        "coverage_k": f.number("coverage_k", default=2.0, positive=True),
+        "resolution_V": f.number("resolution_V", default=None, positive=True),
+        "model": f.string("model", default="auto", nonempty=True),
+    }
+    f.done()
+    if ad["max_points"] < 2 * ad["coarse_points"] - 1 and "falling" in bias["branches"]:
+        raise UserError(f"{where}: field 'adaptive.max_points': {ad['max_points']} is below the coarse "
+                        f"loop of 2*coarse_points - 1 = {2 * ad['coarse_points'] - 1} points; raise it")
+    if ad["max_points"] < ad["coarse_points"]:
+        raise UserError(f"{where}: field 'adaptive.max_points': {ad['max_points']} is below "
+                        f"coarse_points ({ad['coarse_points']}); raise it")
+    from fits import models  # the fitted laws (not the table interpolant)
+
+    names = [n for n in models.names() if models.get(n).fitted]
+    if ad["model"] != "auto" and ad["model"] not in names:
+        raise UserError(f"{where}: field 'adaptive.model': {ad['model']!r} is not a fitted model; "
+                        f"use \"auto\" or one of {', '.join(names)}")
+    if bias["polarity"] == "both":
+        raise UserError(f"{where}: field 'bias.polarity': adaptive steps sweep one polarity per loop; "
+                        "use \"positive\" or \"negative\" (or leave out [adaptive])")
+    if bias["repeats"] != 1:
+        raise UserError(f"{where}: field 'bias.repeats': adaptive steps use the repeat column for "
+                        "their passes; set repeats = 1 (or leave out [adaptive])")
+    lowest = (bias["points_V"][0] if bias.get("points_V") is not None
+              else bias["start_V"] if bias.get("step_V") is not None else 0.0)
+    if lowest != 0.0:
+        raise UserError(f"{where}: field 'bias': adaptive steps start at 0 V (C0 is the value there); "
+                        "let the bias range start at 0 V")
+    return ad
 
 
 def _parse_limits(raw: Mapping, where: str) -> dict:
@@ -428,6 +533,12 @@ def build_sweeps(
     for s in samples:
         part = check_sample(plan, s, parts, supply_range_V)
         cond = meter_conditions(plan, part)
+        if plan.adaptive is not None:
+            planner = adaptive_planner(plan, part)
+            seq = planner.first_pass().points
+            pts = tuple(PlannedPoint(s.sample_id, 1, i, br, v) for i, (br, v) in enumerate(seq))
+            out.append(SampleSweep(s, part, cond, pts, planner))
+            continue
         seq = plan.sequence(part.rated_V)
         pts = tuple(
             PlannedPoint(s.sample_id, r, i, br, v)
@@ -436,6 +547,19 @@ def build_sweeps(
         )
         out.append(SampleSweep(s, part, cond, pts))
     return out
+
+
+def adaptive_planner(plan: Plan, part: Any):
+    """The LoopPlanner of one sample: from 0 V to the top of the plan's range for its part."""
+    from benchkit.adaptive import AdaptiveSettings, LoopPlanner
+
+    top = max(plan.leg_magnitudes(part.rated_V))
+    sign = -1.0 if plan.bias["polarity"] == "negative" else 1.0
+    try:
+        settings = AdaptiveSettings.from_plan(plan.adaptive)
+        return LoopPlanner(sign * top, settings, plan.bias["branches"])
+    except ValueError as exc:
+        raise UserError(f"{plan.source}: field 'adaptive': {exc}") from None
 
 
 def discharge_wait_s(plan: Plan, sweeps: Iterable[SampleSweep]) -> tuple[float, str]:

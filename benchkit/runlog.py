@@ -43,6 +43,10 @@ FLAGS = {
     "overload": "the meter reported overload (9.9E37) on at least one reading; those readings are left out",
     "temp_change": "temperature moved more than limits.temp_tolerance_C since the sample's first point",
     "resumed": "first point measured after the run was resumed; the part's bias history was restarted",
+    "max_dwell": "settle detection reached settle.max_dwell_s before the drift fell below "
+                 "settle.max_drift_pct_per_s: the point was read while the part may still drift",
+    "retried": "an instrument exchange of this point needed a retry (no reply, a garbled or late reply, "
+               "or a reconnect after a dropped link); run.json events 'link_recovered' say which",
 }
 
 
@@ -55,6 +59,18 @@ def join_flags(words: Iterable[str]) -> str:
         if w not in out:
             out.append(w)
     return ";".join(out)
+
+
+class RunFileError(Exception):
+    """points.csv or run.json could not be written (disk full, read-only, I/O error).
+
+    Raised mid-run: the sweep treats it as a reason to stop (bias off first), not as a bug.
+    """
+
+
+def _write_problem(path: Path, exc: OSError) -> str:
+    return (f"cannot write {path} ({exc.strerror or exc}); the disk may be full or read-only: "
+            "free space or fix the folder")
 
 
 def utc_now() -> str:
@@ -98,8 +114,14 @@ def read_points(run_dir: str | os.PathLike) -> tuple[list[dict[str, str]], int]:
     except FileNotFoundError:
         raise UserError(f"{path}: not found; is {run_dir} a run directory?") from None
     end = data.rfind(b"\n") + 1  # 0 when not even the header is complete
-    text = data[:end].decode("utf-8", errors="strict")
-    lines = list(csv.reader(io.StringIO(text)))
+    try:
+        text = data[:end].decode("utf-8", errors="strict")
+        lines = list(csv.reader(io.StringIO(text, newline="")))
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        raise UserError(f"{path}: line {line}: not UTF-8 text; the file is damaged or not from benchkit") from None
+    except csv.Error as exc:
+        raise UserError(f"{path}: not a readable CSV file ({exc}); the file is damaged or not from benchkit") from None
     if not lines or tuple(lines[0]) != COLUMNS:
         raise UserError(f"{path}: header is not the benchkit points header; the file is damaged or not from benchkit")
     rows = []
@@ -119,6 +141,8 @@ def read_run(run_dir: str | os.PathLike) -> dict:
         raise UserError(f"{path}: not found; give the directory a 'benchkit measure --out' created") from None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise UserError(f"{path}: unreadable ({exc}); the run directory is damaged") from None
+    except RecursionError:  # json nests deeper than Python recurses: not a run record either
+        raise UserError(f"{path}: unreadable (nested too deeply to be a run record); the run directory is damaged") from None
     if not isinstance(meta, dict) or meta.get("format") != RUN_FORMAT or meta.get("version") != RUN_VERSION:
         raise UserError(f"{path}: not a {RUN_FORMAT} version {RUN_VERSION} file")
     return meta
@@ -140,14 +164,32 @@ class RunLog:
         d = Path(run_dir)
         if d.exists() and (not d.is_dir() or any(d.iterdir())):
             raise UserError(f"{d}: already exists and is not empty; choose a new --out, or --resume {d}")
-        d.mkdir(parents=True, exist_ok=True)
-        fh = open(d / POINTS_FILE, "a+", encoding="utf-8", newline="")
-        cls._lock(fh, d)
-        fh.write(",".join(COLUMNS) + "\n")
-        fh.flush()
-        os.fsync(fh.fileno())
-        log = cls(d, meta, fh, [])
-        log.save()
+        created = not d.exists()
+        fh = None
+        try:
+            d.mkdir(parents=True, exist_ok=True)
+            fh = open(d / POINTS_FILE, "a+", encoding="utf-8", newline="")
+            cls._lock(fh, d)
+            log = cls(d, meta, fh, [])
+            log._append_bytes((",".join(COLUMNS) + "\n").encode("utf-8"))
+            log.save()
+        except (OSError, RunFileError) as exc:
+            # nothing half written: take back what was made, then one line for the operator
+            if fh is not None:
+                fh.close()
+                for name in (POINTS_FILE, RUN_FILE):
+                    try:
+                        (d / name).unlink()
+                    except OSError:
+                        pass
+            if created:
+                try:
+                    d.rmdir()
+                except OSError:
+                    pass
+            why = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+            raise UserError(f"{d}: cannot create the run directory ({why}); choose an --out "
+                            "on a disk with free space, in a folder you can write") from None
         _fsync_dir(d)
         return log
 
@@ -181,10 +223,25 @@ class RunLog:
 
     # -- writing -------------------------------------------------------------
     def append_point(self, row: Mapping[str, Any]) -> None:
-        """One row, on disk (fsync) before this returns."""
-        self._fh.write(row_line(row))
-        self._fh.flush()
-        os.fsync(self._fh.fileno())
+        """One row, on disk (fsync) before this returns; RunFileError if it cannot be."""
+        self._append_bytes(row_line(row).encode("utf-8"))
+
+    def _append_bytes(self, data: bytes) -> None:
+        """Write straight to the file (no buffer that could be flushed half later), fsync;
+        on failure cut the file back, so it holds whole confirmed rows only."""
+        fd = self._fh.fileno()
+        start = os.lseek(fd, 0, os.SEEK_END)
+        try:
+            view = memoryview(data)
+            while view:
+                view = view[os.write(fd, view):]
+            os.fsync(fd)
+        except OSError as exc:
+            try:
+                os.ftruncate(fd, start)
+            except OSError:
+                pass  # a partial last line is dropped when the run is resumed
+            raise RunFileError(_write_problem(self.dir / POINTS_FILE, exc)) from None
 
     def event(self, t_s: float | None, kind: str, **fields: Any) -> None:
         entry = {"utc": utc_now(), "t_s": t_s, "event": kind}
@@ -203,7 +260,10 @@ class RunLog:
         self.save()
 
     def save(self) -> None:
-        write_text_atomic(self.dir / RUN_FILE, json.dumps(self.meta, indent=2, allow_nan=False) + "\n")
+        try:
+            write_text_atomic(self.dir / RUN_FILE, json.dumps(self.meta, indent=2, allow_nan=False) + "\n")
+        except UserError as exc:  # benchkit.atomic's one line: disk full, read-only, I/O error
+            raise RunFileError(str(exc)) from None
 
     def close(self) -> None:
         if self._fh is not None and not self._fh.closed:

@@ -9,6 +9,12 @@ to 0 V; at the end of the run switch the output off and wait for the parts to di
 Whatever ends the run (an error, SIGINT, SIGTERM), the `finally` ramps down and switches the
 output off (BiasSupply.safe_off), and run.json records how the run ended. A resumed run
 writes each planned point exactly once.
+
+Faults: the drivers retry, resynchronise and reconnect (bounded, with backoff) and re-apply
+their settings; the engine records each recovery (event link_recovered, flag `retried` on the
+point). It stops, bias off first, when a driver gives up, when the supply comes back from a
+reconnect with its output off (it restarted), when an instrument reports an error (read after
+each setting and at the end of each sample), or when points.csv or run.json cannot be written.
 """
 
 from __future__ import annotations
@@ -38,7 +44,7 @@ from benchkit.plan import (
     resolve_samples,
 )
 from benchkit.progress import Progress
-from benchkit.runlog import FLAGS, RunLog, join_flags, utc_now
+from benchkit.runlog import FLAGS, RunFileError, RunLog, join_flags, utc_now
 from benchkit.safety import (
     Guarded,
     GuardedClock,
@@ -55,13 +61,20 @@ CURRENT_LIMIT_FRACTION = 0.98  # |I| at or above this share of the limit: the su
 
 
 class DwellPolicy(Protocol):
-    """How long to wait at a new bias before reading; settle detection will be one of these."""
+    """How long to wait at a new bias before reading (fixed, or settle detection).
+
+    wait() returns settle_s as a float; a policy that watched the part may return a float
+    that also carries `drift_pct_per_s` (its own drift estimate, which then goes into the
+    row) and `flags` (words of benchkit.runlog.FLAGS, e.g. "max_dwell"): see
+    benchkit.settle.SettleResult. `dwell_s` is what the row's dwell_s column records: the
+    fixed dwell, or the longest a watching policy may wait.
+    """
 
     name: str
     dwell_s: float
 
     def wait(self, clock, probe: Callable[[], float]) -> float:
-        """Wait on `clock` (probe() reads C_F if the policy wants to watch it); return settle_s."""
+        """Wait on `clock` (probe() reads C_F, NaN on overload); return settle_s."""
 
 
 class FixedDwell:
@@ -77,13 +90,20 @@ class FixedDwell:
         return self.dwell_s
 
 
-DWELL_POLICIES: dict[str, Callable[[dict], DwellPolicy]] = {
-    "fixed": lambda measure: FixedDwell(measure["dwell_s"]),
+def _settle_policy(plan: Plan) -> DwellPolicy:
+    from benchkit.settle import SettleDetector
+
+    return SettleDetector.from_plan(plan.settle)
+
+
+DWELL_POLICIES: dict[str, Callable[[Plan], DwellPolicy]] = {
+    "fixed": lambda plan: FixedDwell(plan.measure["dwell_s"]),
+    "settle": _settle_policy,
 }
 
 
 def dwell_policy(plan: Plan) -> DwellPolicy:
-    return DWELL_POLICIES[plan.measure["dwell"]](plan.measure)
+    return DWELL_POLICIES[plan.measure["dwell"]](plan)
 
 
 # --------------------------------------------------------------------------- results
@@ -287,6 +307,7 @@ def resume_sweep(
                     )
         clock = _pick_clock(clock, src)
         sweeps = build_sweeps(stored, samples, parts, src.supply_range_V())
+        sweeps = [_replay_adaptive(sw, log.rows) if sw.adaptive is not None else sw for sw in sweeps]
         _check_prefix(log.rows, sweeps, meta["run_id"], run_dir)
         wait_s = float(meta.get("discharge_wait_s") or 0.0)
         with src.open() as inst:
@@ -355,6 +376,7 @@ def _new_meta(plan, sweeps, inst, src, clock, wait_s, wait_how, extra) -> dict:
                 "sample_id": sw.sample.sample_id,
                 "part_id": sw.sample.part_id,
                 "channel": sw.sample.channel,
+                "hours_since_heat_h": sw.sample.hours_since_heat_h,
                 "part": part_record(sw.part),
                 "conditions": {
                     "function": sw.conditions.function,
@@ -384,11 +406,40 @@ def _samples_from_meta(meta: Mapping, run_dir) -> tuple[list[SampleRef], dict]:
     samples, parts = [], {}
     try:
         for s in meta["samples"]:
-            samples.append(SampleRef(s["sample_id"], s["part_id"], int(s["channel"])))
+            samples.append(SampleRef(s["sample_id"], s["part_id"], int(s["channel"]),
+                                     s.get("hours_since_heat_h")))
             parts[s["part_id"]] = CataloguePart(**{f.name: s["part"][f.name] for f in fields(CataloguePart)})
     except (KeyError, TypeError, ValueError) as exc:
         raise UserError(f"{run_dir}/run.json: field 'samples' is incomplete ({exc}); cannot resume") from None
     return samples, parts
+
+
+def measured_point(row: Mapping[str, Any]):
+    """A points.csv row (text or values) as benchkit.adaptive.MeasuredPoint."""
+    from benchkit.adaptive import MeasuredPoint
+
+    def num(v):
+        return None if v is None or v == "" else float(v)
+
+    C, s, n = num(row["C_F"]), num(row["C_std_F"]), num(row["n_readings"])
+    sigma = s / math.sqrt(n) if s is not None and n and s > 0 else None
+    return MeasuredPoint(row["branch"], float(row["bias_set_V"]), C, sigma)
+
+
+def _replay_adaptive(sw: SampleSweep, rows) -> SampleSweep:
+    """The points an adaptive sample had planned when the run stopped: its planner is fed
+    the rows on disk pass by pass (it is deterministic), so a resume measures exactly the
+    points the interrupted session would have."""
+    from dataclasses import replace
+
+    mine = [r for r in rows if r["sample_id"] == sw.sample.sample_id]
+    points = list(sw.points)
+    planner = sw.adaptive
+    while len(mine) >= len(points) and not planner.stopped:
+        nxt = planner.next_pass([measured_point(r) for r in mine[: len(points)]])
+        points += [PlannedPoint(sw.sample.sample_id, nxt.index, len(points) + i, br, v)
+                   for i, (br, v) in enumerate(nxt.points)]
+    return replace(sw, points=tuple(points))
 
 
 def _check_prefix(rows, sweeps, run_id, run_dir) -> None:
@@ -441,7 +492,8 @@ def _is_expected(exc: BaseException) -> bool:
     """Stops the engine reports as an aborted run rather than as a bug."""
     from instruments.drivers.errors import InstrumentError, InvalidValueError
 
-    return isinstance(exc, (Interrupted, KeyboardInterrupt, InstrumentError, InvalidValueError))
+    return isinstance(exc, (Interrupted, KeyboardInterrupt, InstrumentError, InvalidValueError,
+                            RunFileError))
 
 
 def _reason(exc: BaseException, where: str) -> str:
@@ -488,14 +540,19 @@ def _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, done
                 if progress is not None:
                     progress.note(f"benchkit: parts may still hold charge; wait {wait_s:g} s and check before handling")
             if not safe:
+                why = getattr(raw_supply, "last_safe_off_error", None) or "safe_off could not confirm 0 V and output off"
                 log.event(t, "supply_not_confirmed_safe",
-                          detail="safe_off could not confirm 0 V and output off: check the supply by hand")
-                print("benchkit: WARNING: could not confirm the supply is at 0 V with its output off; "
-                      "check it by hand before touching the fixture", file=sys.stderr)
+                          detail=f"{why}; the output may still be live: check the supply by hand")
+                print(f"benchkit: WARNING: {why}; the supply's output may still be live: switch it off "
+                      "by hand and check the fixture before touching it", file=sys.stderr)
             if src.sim is not None and hasattr(src.sim, "supply_state"):
                 with contextlib.suppress(Exception):
                     log.meta["sim_final_supply_state"] = dict(src.sim.supply_state())
-            log.set_status(status, reason)
+            try:
+                log.set_status(status, reason)
+            except RunFileError as exc:  # the bias is off already; say what is not on disk
+                print(f"benchkit: WARNING: the run ended {status} but run.json could not be "
+                      f"updated: {exc}", file=sys.stderr)
             if progress is not None:
                 progress.finish(status)
     if error is not None:
@@ -503,7 +560,7 @@ def _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, done
     n_rows = len(done_rows) + engine.n_new
     return RunResult(
         run_dir=log.dir, run_id=log.meta["run_id"], status=status, reason=reason, n_points=n_rows,
-        n_new=engine.n_new, n_planned=sum(len(sw.points) for sw in sweeps),
+        n_new=engine.n_new, n_planned=engine.total,
         points_sha256=log.meta.get("points_sha256"), supply_safe=safe,
     )
 
@@ -528,6 +585,55 @@ class _Engine:
         self.current: PlannedPoint | None = None
         self.output_on = False
         self.output_off_done = False  # the normal end was reached: all points, output off
+        self._measured: dict[str, list] = {}  # sample_id -> rows so far (adaptive planning)
+        for r in done_rows:
+            self._measured.setdefault(r["sample_id"], []).append(r)
+        self._ref_temp = None
+        self._raw = {"meter": inst.meter, "supply": inst.supply, "scanner": inst.scanner,
+                     "thermometer": inst.thermometer}
+        self._links = self._link_counts()
+
+    # -- link recoveries (the drivers retry, resync and reconnect; the run records it) ---------
+    RETRY_COUNTERS = ("timeouts", "garbled", "link_errors", "reconnects")
+
+    def _link_counts(self) -> dict:
+        out = {}
+        for role, drv in self._raw.items():
+            session = getattr(drv, "session", None)
+            counters = getattr(session, "counters", None)
+            if counters is not None:
+                out[role] = (dict(counters), list(getattr(session, "events", ())))
+        return out
+
+    def _note_recoveries(self) -> bool:
+        """Log what each link recovered from since the last look (event link_recovered).
+
+        After the supply's link was reopened its output must still be on: a supply that
+        restarted comes back with its output off, and measuring on would log 0 V points.
+        """
+        now = self._link_counts()
+        seen = False
+        for role, (counts, events) in now.items():
+            before, old_events = self._links.get(role, ({}, []))
+            delta = {k: counts.get(k, 0) - before.get(k, 0) for k in self.RETRY_COUNTERS
+                     if counts.get(k, 0) > before.get(k, 0)}
+            if not delta:
+                continue
+            seen = True
+            new = events[len(old_events):] if len(events) > len(old_events) else events[-5:]
+            self.log.event(self.t_s(), "link_recovered", role=role, at=self.where(), **delta,
+                           detail=new[-10:])
+            if role == "supply" and delta.get("reconnects") and self.output_on and not self.supply.output_on:
+                from instruments.drivers.errors import InstrumentError
+
+                res = getattr(self._raw["supply"], "resource", "?")
+                raise InstrumentError(
+                    f"supply ({res}): after reconnecting, its output reads off although the sweep "
+                    "had it on (the supply may have restarted, or an interlock tripped); the sweep "
+                    "stops here: check the supply, its mains and interlock, then resume",
+                    role="supply", resource=res, command="OUTPut?")
+        self._links = now
+        return seen
 
     def t_s(self) -> float:
         return self.t_offset + (self.clock.now() - self.t0)
@@ -554,34 +660,122 @@ class _Engine:
         first_in_session = True
         for sw in self.sweeps:
             pts = [p for (w, p) in todo if w is sw]
-            if not pts:
+            if not pts and (sw.adaptive is None or sw.adaptive.stopped):
+                if sw.adaptive is not None:
+                    self._adaptive_record(sw)
                 continue
             self._start_sample(sw)
-            if first_in_session and self.resumed and pts[0] is not sw.points[0]:
+            if first_in_session and self.resumed and pts and pts[0] is not sw.points[0]:
                 self._approach(sw, pts[0])
-            ref_temp = None
+            self._ref_temp = None
             for p in pts:
-                self.current = p
                 mid_sample = p is not sw.points[0]
-                row = self._measure_point(sw, p, resumed=first_in_session and self.resumed and mid_sample)
+                self._take_point(sw, p, resumed=first_in_session and self.resumed and mid_sample)
                 first_in_session = False
-                if ref_temp is None:
-                    ref_temp = row["temp_C"]
-                elif ref_temp is not None and row["temp_C"] is not None and \
-                        abs(row["temp_C"] - ref_temp) > self.plan.limits["temp_tolerance_C"]:
-                    row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
-                with self.guard.transaction():  # a row is written whole or not at all
-                    self.log.append_point(row)
-                self.done += 1
-                self.n_new += 1
-                if self.progress is not None:
-                    c = row["C_F"]
-                    ctext = "overload" if c is None else f"C = {c:.5g} F"
-                    self.progress.point(self.done, f"{p.sample_id} {p.branch} {p.bias_V:+g} V: {ctext}")
+            if sw.adaptive is not None:
+                self._adaptive_passes(sw, first_in_session and self.resumed)
+                first_in_session = False
             self.current = None
             self.supply.ramp_to(0.0, self.plan.max_ramp_V_per_s, self.gclock)
+            self._note_recoveries()
+            # the meter and thermometer are only queried while measuring: read what their error
+            # queues collected (SCPI SYSTem:ERRor?) before trusting the next sample to them
+            for drv in (self.meter, self.thermo):
+                drv.check_errors(after=f"measuring sample {sw.sample.sample_id}")
             self.log.event(self.t_s(), "sample_end", sample_id=sw.sample.sample_id)
             self.log.save()
+
+    def _take_point(self, sw: SampleSweep, p: PlannedPoint, resumed: bool) -> dict:
+        """Measure one planned point and put its row on disk."""
+        self.current = p
+        if sw.adaptive is not None:
+            self._lead_in(sw, p)
+        row = self._measure_point(sw, p, resumed=resumed)
+        if self._ref_temp is None:
+            self._ref_temp = row["temp_C"]
+        elif row["temp_C"] is not None and \
+                abs(row["temp_C"] - self._ref_temp) > self.plan.limits["temp_tolerance_C"]:
+            row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
+        with self.guard.transaction():  # a row is written whole or not at all
+            self.log.append_point(row)
+        self._measured.setdefault(p.sample_id, []).append(row)
+        self.done += 1
+        self.n_new += 1
+        if self.progress is not None:
+            c = row["C_F"]
+            ctext = "overload" if c is None else f"C = {c:.5g} F"
+            self.progress.point(self.done, f"{p.sample_id} {p.branch} {p.bias_V:+g} V: {ctext}")
+        return row
+
+    # -- adaptive bias steps (benchkit/adaptive.py) -------------------------------
+    def _adaptive_passes(self, sw: SampleSweep, resumed: bool) -> None:
+        """Ask the sample's planner for pass after pass and measure them, until it stops.
+
+        Each pass is a loop at the plan's polarity: its rising points from 0 V up (so the
+        bias first returns to 0 V), then up to the same top without reading and its falling
+        points on the way down, so every falling point is on the branch that turns at the
+        top (_lead_in)."""
+        planner = sw.adaptive
+        sid = sw.sample.sample_id
+        while not planner.stopped:
+            rows = self._measured.get(sid) or []
+            nxt = planner.next_pass([measured_point(r) for r in rows])
+            self.log.event(self.t_s(), "adaptive_pass", sample_id=sid, **_pass_record(nxt))
+            self.log.save()
+            if not nxt.points:
+                break
+            new = [PlannedPoint(sid, nxt.index, len(rows) + i, br, v)
+                   for i, (br, v) in enumerate(nxt.points)]
+            self.total += len(new)
+            if self.progress is not None:
+                self.progress.total = self.total
+            for i, p in enumerate(new):
+                self._take_point(sw, p, resumed=resumed and i == 0)
+        self._adaptive_record(sw)
+
+    def _lead_in(self, sw: SampleSweep, p: PlannedPoint) -> None:
+        """Before a point of an adaptive pass after the first: its rising points start from
+        0 V, its falling points from the top (the loop's turning points)."""
+        if p.repeat < 2:
+            return
+        rows = self._measured.get(p.sample_id) or []
+        prev = rows[-1] if rows else None
+        same_pass = prev is not None and int(prev["repeat"]) == p.repeat
+        if p.branch == "rising" and not same_pass:
+            if prev is None or float(prev["bias_set_V"]) != 0.0:
+                self._turn(sw, 0.0, p.repeat)
+        elif p.branch == "falling" and not (same_pass and prev["branch"] == "falling"):
+            if self.resumed and self.n_new == 0:
+                self.log.event(self.t_s(), "resume_approach", sample_id=p.sample_id,
+                               via_V=sw.adaptive.top_V)
+            self._turn(sw, sw.adaptive.top_V, p.repeat)
+
+    def _turn(self, sw: SampleSweep, bias_V: float, pass_index: int) -> None:
+        """Reach a turning point of the loop and wait there by the dwell policy, as for a
+        point (without reading one): the part has to be charged to it and to have relaxed,
+        or it turns short of the top and its falling points follow another branch."""
+        self.supply.ramp_to(bias_V, self.plan.max_ramp_V_per_s, self.gclock)
+        settle = self.policy.wait(self.gclock, lambda: self._probe(sw.conditions))
+        self.log.event(self.t_s(), "adaptive_turn", sample_id=sw.sample.sample_id,
+                       pass_index=pass_index, bias_V=bias_V, settle_s=float(settle),
+                       flags=list(getattr(settle, "flags", ())))
+
+    def _adaptive_record(self, sw: SampleSweep) -> None:
+        """Why the sample's adaptive steps stopped, into its run.json samples entry."""
+        planner = sw.adaptive
+        last = planner.history[-1] if planner.history else None
+        entry = next((e for e in self.log.meta.get("samples", [])
+                      if e.get("sample_id") == sw.sample.sample_id), None)
+        if entry is None or last is None:
+            return
+        entry["adaptive"] = {
+            "passes": max(1, len(planner.history) - (0 if last.points else 1)),
+            "stop_reason": last.stop_reason,
+            "n_points": len(self._measured.get(sw.sample.sample_id) or []),
+            "top_V": planner.top_V,
+            **{k: v for k, v in _pass_record(last).items() if k in ("status", "remanent_V", "turn_shift_V")},
+        }
+        self.log.save()
 
     def _start_sample(self, sw: SampleSweep) -> None:
         c = sw.conditions
@@ -601,6 +795,8 @@ class _Engine:
         """After a resume, reach a falling-branch point from above, as the plan would have."""
         if first.branch != "falling":
             return
+        if sw.adaptive is not None and first.repeat >= 2:
+            return  # _lead_in turns at the top first, as the pass would have
         before = [p for p in sw.points if p.repeat == first.repeat and p.step_index < first.step_index]
         peak = next((p for p in reversed(before) if p.branch == "rising"), None)
         if peak is None:
@@ -610,9 +806,10 @@ class _Engine:
 
     def _measure_point(self, sw: SampleSweep, p: PlannedPoint, resumed: bool) -> dict:
         plan, cond = self.plan, sw.conditions
+        self._note_recoveries()  # before this point (configuring, ramping down): events only
         self.supply.ramp_to(p.bias_V, plan.max_ramp_V_per_s, self.gclock)
         t_reached = self.clock.now()
-        settle_s = self.policy.wait(self.gclock, lambda: self._probe(cond))
+        settle = self.policy.wait(self.gclock, lambda: self._probe(cond))
         values, times, overload = [], [], False
         for _ in range(plan.n_readings):
             r = self.meter.measure()
@@ -636,6 +833,9 @@ class _Engine:
             flags.append("overload")
         if resumed:
             flags.append("resumed")
+        if self._note_recoveries():
+            flags.append("retried")
+        flags += list(getattr(settle, "flags", ()))  # e.g. max_dwell from settle detection
         arr = np.array(values) if values else np.empty((0, 3))
         C = float(arr[:, 0].mean()) if len(arr) else None
         C_std = float(arr[:, 0].std(ddof=1)) if len(arr) >= 2 else None
@@ -666,14 +866,19 @@ class _Engine:
             "temp_C": float(temp),
             "t_s": self.t_offset + (t_first - self.t0),
             "dwell_s": self.policy.dwell_s,
-            "settle_s": float(settle_s if settle_s is not None else t_first - t_reached),
-            "drift_pct_per_s": drift,
+            "settle_s": float(settle if settle is not None else t_first - t_reached),
+            # a watching policy's drift (over its window, at the end of the dwell) when it has
+            # one; else the slope of this point's own readings
+            "drift_pct_per_s": (float(settle.drift_pct_per_s)
+                                if getattr(settle, "drift_pct_per_s", None) is not None else drift),
             "flags": join_flags(flags),
             "utc": utc_now(),
         }
 
     def _probe(self, cond) -> float:
         r = self.meter.measure()
+        if r.overload:
+            return math.nan  # a dwell policy leaves it out
         return _convert(r.primary, r.secondary, cond.function, cond.freq_Hz)[0]
 
     def finish(self, wait_s: float) -> None:
@@ -687,6 +892,18 @@ class _Engine:
         if wait_s > 0:
             self.gclock.sleep(wait_s)
         self.scanner.open_all()
+
+
+def _pass_record(p) -> dict:
+    """A benchkit.adaptive.PassPlan as plain data for run.json."""
+    return {
+        "pass": p.index,
+        "points_V": [[br, v] for br, v in p.points],
+        "stop_reason": p.stop_reason,
+        "status": {b: st.to_dict() for b, st in p.status.items()},
+        "remanent_V": p.remanent_V,
+        "turn_shift_V": getattr(p, "turn_shift_V", None),
+    }
 
 
 def _in_current_limit(set_V: float, meas_V: float, meas_A: float, plan: Plan) -> bool:

@@ -3,7 +3,10 @@
 The run's identity is the sha256 of its points.csv: the same data added twice (by one bench
 or two) is stored once. Each sample of the asked part is fitted as `benchkit fit` fits it:
 both sweep branches together (fits.fit_branches, model "auto" unless told), weighted by
-C_std_F/sqrt(n_readings) (CONTRACTS.md section 5), points flagged `overload` left out.
+C_std_F/sqrt(n_readings) (CONTRACTS.md section 5), points flagged overload, current_limit or
+bias_readback left out: the run is read by benchkit.rundata, the reader `benchkit fit` uses, so
+a run added directly and the curve file `benchkit fit` wrote from it are the same curve (same
+content hash, stored once).
 The series resistance stored with a curve (for the SPICE export) is the median Rs over the
 fitted points, or D/(2*pi*f*Cs) when only D was read (Cs = Cp*(1 + D^2) for a parallel
 reading) [published: impedance-measurement handbook relations].
@@ -17,12 +20,10 @@ from pathlib import Path
 
 import numpy as np
 
-from benchkit import runlog
+from benchkit import rundata, runlog
 from benchkit.errors import UserError
 from benchkit.library import fitsbridge
 from benchkit.library.store import Library, RunInfo
-
-SKIP_FLAGS = {"overload"}
 
 
 @dataclass
@@ -72,16 +73,6 @@ def esr_estimate(rows: list[dict[str, str]]) -> float | None:
     return float(np.median(vals)) if vals else None
 
 
-def _fit_reader():
-    """The run-directory reader of `benchkit fit` (benchkit/commands/fit.py), reused on purpose:
-    the library fits exactly the points, weights and conditions `benchkit fit` does, so a run
-    added directly and the curve file `benchkit fit` wrote from it are the same curve (same
-    content hash, stored once)."""
-    from benchkit.commands import fit as fit_command
-
-    return fit_command._read_samples, fit_command._conditions
-
-
 def parts_in_run(run_dir: Path) -> list[str]:
     """The part ids a run directory has points of, sorted."""
     rows, _ = runlog.read_points(run_dir)
@@ -90,18 +81,15 @@ def parts_in_run(run_dir: Path) -> list[str]:
 
 def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str = "auto",
                 allow_incomplete: bool = False) -> AddRunSummary:
-    read_samples, conditions_of = _fit_reader()
     meta = runlog.read_run(run_dir)
     status = meta.get("status")
     if status == "running" and not allow_incomplete:
         raise UserError(f"{run_dir}: run.json says the run is still running (or it crashed); "
                         f"finish or resume it first, or add it anyway with --allow-incomplete")
-    meta, points_path, samples, _left_out = read_samples(Path(run_dir), None, set(SKIP_FLAGS))
-    sha = runlog.sha256_file(points_path)
-    if meta.get("points_sha256") and meta["points_sha256"] != sha:
-        raise UserError(f"{points_path}: sha256 differs from the one in run.json; the points were "
-                        f"changed after the run ended, so they are not added")
-    in_run = sorted({s["part_id"] for s in samples.values() if s["part_id"]})
+    data = rundata.read_run_dir(Path(run_dir), action="added")
+    meta, points_path, sha = data.meta, data.points_path, data.points_sha256
+    samples = data.with_points()
+    in_run = sorted({s.part_id for s in samples.values() if s.part_id})
     if part_id is None:
         if len(in_run) != 1:
             raise UserError(f"{run_dir}: the run holds parts {', '.join(in_run) or '(none named)'}; "
@@ -116,19 +104,19 @@ def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str 
         return summary
     for sample_id in sorted(samples):
         smp = samples[sample_id]
-        if smp["part_id"] != part_id:
+        if smp.part_id != part_id:
             continue
         source = {"points_sha256": sha, "run_id": meta.get("run_id"), "sample_id": sample_id,
                   "part_id": part_id}
         try:
             outcome = fitsbridge.fit_branches(
-                smp["V"], smp["C"], smp["branch"], smp["sigma"], model=model,
-                conditions=conditions_of(meta, smp["rows"], smp["temp"]), source=source,
+                smp.bias_V, smp.C_F, smp.branch, smp.sigma_F, model=model,
+                conditions=rundata.fit_conditions(meta, smp.rows), source=source,
                 part_id=part_id, sample_id=sample_id)
         except fitsbridge.fits_errors() as exc:
             raise UserError(f"{points_path}: sample {sample_id}: {exc}") from None
         for branch, curve in outcome.curves.items():
-            brows = [r for r in smp["rows"] if r["branch"] == branch]
+            brows = smp.select(branch).rows
             summary.curves.append(FittedCurve(sample_id, branch, curve, esr_estimate(brows), len(brows)))
     run = RunInfo(sha, meta.get("run_id"), str(Path(run_dir).resolve()), status, meta)
     ids = lib.add_curves([(fc.curve, fc.esr_ohm) for fc in summary.curves], part_id=part_id, run=run,

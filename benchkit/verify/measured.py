@@ -2,39 +2,29 @@
 fits API) or from curve documents, with what the uncertainty budget needs of each.
 
 A run directory holds several samples, maybe of several parts; only those of the claimed
-part are used, the others are listed as skipped so the report says what was left out.
+part are used, the others are listed as skipped so the report says what was left out. Runs are
+read by benchkit.rundata, the reader `benchkit fit` and the library use: the same points are
+left out (benchkit.rundata.LEFT_OUT_FLAGS), weighted and checked the same way.
 """
 
 from __future__ import annotations
 
-import csv
-import json
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
+from benchkit import rundata
 from benchkit.errors import UserError
 
-RUN_COLUMNS = (
-    "run_id", "sample_id", "part_id", "channel", "step_index", "branch", "repeat",
-    "bias_set_V", "bias_meas_V", "bias_current_A", "function", "freq_Hz",
-    "ac_level_set_Vrms", "ac_level_dut_Vrms", "C_F", "C_std_F", "D", "Rs_ohm", "n_readings",
-    "temp_C", "t_s", "dwell_s", "settle_s", "drift_pct_per_s", "flags", "utc",
-)  # CONTRACTS.md section 5
-_NUMERIC = ("bias_set_V", "C_F", "C_std_F", "n_readings", "freq_Hz", "ac_level_dut_Vrms",
-            "ac_level_set_Vrms", "temp_C")
-# rows left out of the fit: the meter marked its readings unusable, or the part did not see
-# the set bias (benchkit.runlog.FLAGS)
-_DROP_FLAGS = ("overload", "current_limit", "bias_readback")
 BIAS_GROUP_TOL_V = 1e-6
 AGE_KEYS = ("age_h", "hours_since_heat_h")
 
 
 @dataclass
 class Points:
-    """The points of one sample and branch, as used by the fit (flagged overloads dropped)."""
+    """The points of one sample and branch, as used by the fit (flagged points left out)."""
 
     bias_V: np.ndarray
     C_F: np.ndarray
@@ -136,54 +126,6 @@ def load_inputs(paths, part_id: str, branch: str = "rising", model: str = "auto"
     return samples, skipped
 
 
-def _read_run_json(run_dir: Path) -> dict:
-    f = run_dir / "run.json"
-    try:
-        meta = json.loads(f.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise UserError(f"{run_dir}: no run.json; not a run directory") from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise UserError(f"{f}: not readable as JSON ({exc}); the run directory is damaged") from None
-    if not isinstance(meta, dict) or meta.get("format") != "benchkit-run":
-        raise UserError(f"{f}: field 'format' is not 'benchkit-run'; not a run directory")
-    if meta.get("version") != 1:
-        raise UserError(f"{f}: field 'version' {meta.get('version')!r} not supported (expected 1)")
-    return meta
-
-
-def _read_points(run_dir: Path, meta: dict) -> list[dict]:
-    f = run_dir / str(meta.get("points_file") or "points.csv")
-    try:
-        text = f.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise UserError(f"{f}: points file missing; the run directory is incomplete") from None
-    lines = text.splitlines()
-    if not lines:
-        raise UserError(f"{f}: empty; the run recorded no points")
-    reader = csv.reader(lines)
-    header = next(reader)
-    if tuple(header) != RUN_COLUMNS:
-        raise UserError(f"{f}:1: columns differ from the run format (CONTRACTS section 5)")
-    rows = []
-    for lineno, cells in enumerate(reader, start=2):
-        if not cells:
-            continue
-        if len(cells) != len(RUN_COLUMNS):
-            if lineno == len(lines) and meta.get("status") != "complete":
-                break  # a point in progress when the run stopped: dropped, as the log allows
-            raise UserError(f"{f}:{lineno}: {len(cells)} fields, expected {len(RUN_COLUMNS)}")
-        row = dict(zip(RUN_COLUMNS, cells))
-        for k in _NUMERIC:
-            v = row[k]
-            try:
-                row[k] = float(v) if v != "" else math.nan
-            except ValueError:
-                raise UserError(f"{f}:{lineno}: field {k!r} = {v!r} is not a number") from None
-        row["_line"] = lineno
-        rows.append(row)
-    return rows
-
-
 def _sample_meta(meta: dict, sample_id: str) -> dict:
     for s in meta.get("samples") or []:
         if isinstance(s, dict) and s.get("sample_id") == sample_id:
@@ -207,45 +149,33 @@ def _mean(values) -> float | None:
 
 def _from_run(run_dir: Path, part_id: str, branch: str, model: str):
     fits, FitsError = _fits()
-    meta = _read_run_json(run_dir)
-    rows = _read_points(run_dir, meta)
-    by_sample: dict[str, list[dict]] = {}
-    for r in rows:
-        by_sample.setdefault(r["sample_id"], []).append(r)
+    data = rundata.read_run_dir(run_dir, action="verified")
+    meta = data.meta
     samples, skipped = [], []
     origin = f"run {run_dir}"
-    for sid, srows in by_sample.items():
-        pid = srows[0]["part_id"]
+    for sid, smp in data.samples.items():
+        pid = smp.part_id
         if pid != part_id:
             skipped.append(Skipped(sid, pid, origin, f"part {pid}, not the claimed {part_id}"))
             continue
-        use = [r for r in srows if r["branch"] == branch] or srows
-        used_branch = branch if any(r["branch"] == branch for r in srows) else use[0]["branch"]
-        n_branch = len(use)
-        use = [r for r in use if math.isfinite(r["C_F"]) and math.isfinite(r["bias_set_V"])
-               and not any(w in r["flags"].split(";") for w in _DROP_FLAGS)]
-        dropped = n_branch - len(use)
-        if len(use) < 2:
-            raise UserError(f"{run_dir}: sample {sid}: only {len(use)} usable point(s) on the "
+        present = smp.branches()
+        used_branch = branch if branch in present else present[0]
+        use = smp.select(used_branch)
+        dropped = use.left_out
+        if use.n_points < 2:
+            raise UserError(f"{run_dir}: sample {sid}: only {use.n_points} usable point(s) on the "
                             f"{used_branch} branch; re-measure it or leave this run out")
-        pts = Points(np.array([r["bias_set_V"] for r in use]), np.array([r["C_F"] for r in use]),
-                     np.array([r["C_std_F"] for r in use]), np.array([r["n_readings"] for r in use]))
-        sigma = None
-        with np.errstate(invalid="ignore", divide="ignore"):
-            cand = pts.C_std_F / np.sqrt(pts.n_readings)
-        if cand.size and np.all(np.isfinite(cand)) and np.all(cand > 0):
-            sigma = cand
+        pts = Points(use.bias_V, use.C_F, use.C_std_F, use.n_readings)
         smeta = _sample_meta(meta, sid)
         sconds = smeta.get("conditions") or {}
+        fitted = rundata.fit_conditions(meta, use.rows)
         conds = {
-            "freq_Hz": _mean(r["freq_Hz"] for r in use) or sconds.get("freq_Hz")
-            or (meta.get("conditions") or {}).get("freq_Hz"),
-            "ac_level_Vrms": _mean(r["ac_level_dut_Vrms"] for r in use),
-            "ac_level_set_Vrms": _mean(r["ac_level_set_Vrms"] for r in use)
-            or sconds.get("ac_level_Vrms"),
-            "temp_C": _mean(r["temp_C"] for r in use),
+            "freq_Hz": fitted["freq_Hz"] or sconds.get("freq_Hz"),
+            "ac_level_Vrms": _mean(rundata.column(use.rows, "ac_level_dut_Vrms")),
+            "ac_level_set_Vrms": fitted["ac_level_Vrms"] or sconds.get("ac_level_Vrms"),
+            "temp_C": fitted["temp_C"],
             "age_h": _age_from(smeta, meta.get("conditions")),
-            "function": (use[0]["function"] if use else None) or sconds.get("function"),
+            "function": fitted["function"] or sconds.get("function"),
         }
         if conds["ac_level_Vrms"] is None:
             conds["ac_level_Vrms"] = conds["ac_level_set_Vrms"]
@@ -254,14 +184,14 @@ def _from_run(run_dir: Path, part_id: str, branch: str, model: str):
             conds["ac_level_source"] = "level across the part (mean of the points)"
         conds["age_source"] = "run.json" if conds["age_h"] is not None else "not recorded"
         conds["points_dropped"] = dropped
-        conds["temp_change_points"] = sum("temp_change" in r["flags"].split(";") for r in use)
+        conds["temp_change_points"] = sum("temp_change" in rundata.flags_of(r) for r in use.rows)
         curve_conds = {k: conds[k] for k in ("freq_Hz", "ac_level_Vrms", "temp_C", "function")}
         if conds["age_h"] is not None:
             curve_conds["age_h"] = conds["age_h"]
-        source = {"points_sha256": meta.get("points_sha256"), "run_id": meta.get("run_id"),
+        source = {"points_sha256": data.points_sha256, "run_id": meta.get("run_id"),
                   "sample_id": sid, "part_id": pid, "branch": used_branch}
         try:
-            outcome = fits.fit_sweep(pts.bias_V, pts.C_F, sigma_F=sigma, model=model,
+            outcome = fits.fit_sweep(pts.bias_V, pts.C_F, sigma_F=use.sigma_F, model=model,
                                      branch=used_branch, conditions=curve_conds, source=source,
                                      part_id=pid, sample_id=sid)
         except FitsError as exc:

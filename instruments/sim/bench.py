@@ -175,9 +175,13 @@ class SimBench:
 
     @property
     def channels(self) -> list[dict]:
-        """[{channel, sample_id, part_id}] in channel order."""
-        return [{"channel": s.channel, "sample_id": s.sample_id, "part_id": s.part_id}
-                for s in sorted(self.slots, key=lambda s: s.channel)]
+        """[{channel, sample_id, part_id, hours_since_heat_h}] in channel order (age: now)."""
+        out = []
+        for s in sorted(self.slots, key=lambda s: s.channel):
+            age = getattr(self.fixture.part(s.channel), "hours_since_heat_h", None)
+            out.append({"channel": s.channel, "sample_id": s.sample_id, "part_id": s.part_id,
+                        "hours_since_heat_h": age() if callable(age) else None})
+        return out
 
     def bench_file_text(self) -> str:
         """The bench file (TOML) that points `benchkit measure --bench` at this bench."""
@@ -189,7 +193,10 @@ class SimBench:
         for entry in self.channels:
             lines += ["[[channel]]", f"channel = {entry['channel']}",
                       f"sample_id = {_toml_str(entry['sample_id'])}",
-                      f"part_id = {_toml_str(entry['part_id'])}", ""]
+                      f"part_id = {_toml_str(entry['part_id'])}"]
+            if entry["hours_since_heat_h"] is not None:
+                lines.append(f"hours_since_heat_h = {entry['hours_since_heat_h']:.6g}")
+            lines.append("")
         return "\n".join(lines)
 
     # ------------------------------------------------------------ test oracles and knobs

@@ -315,7 +315,7 @@ def run_folder(scratch):
 @settings(**SETTINGS)
 @given(data=st.data())
 def test_points_reader_accepts_or_gives_one_line(run_folder, data):
-    from benchkit.commands.fit import _read_samples  # the reader `benchkit fit` uses
+    from benchkit.rundata import read_run_dir  # the reader of `benchkit fit`, library and verify
 
     raw = data.draw(st.one_of(documents(POINTS_SEEDS).map(lambda t: t.encode("utf-8", "surrogatepass")),
                               st.binary(max_size=400)))
@@ -328,7 +328,7 @@ def test_points_reader_accepts_or_gives_one_line(run_folder, data):
         return
     assert end <= len(raw) and all(len(r) == len(runlog.COLUMNS) for r in rows)
     try:
-        _read_samples(run_folder, None, {"overload"})
+        read_run_dir(run_folder)
     except UserError as exc:
         one_line(exc)
 

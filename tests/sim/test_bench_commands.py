@@ -40,6 +40,8 @@ def inst(rm, bench):
 def reset_all(inst):
     for res in inst.values():
         res.write("*RST;*CLS")
+    for res in inst.values():  # writes to different instruments are not ordered: sync each
+        assert res.query("*OPC?") == "1"
     yield
     # no test may leave an error behind that it did not look at
     for role, res in inst.items():

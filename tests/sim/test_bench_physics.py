@@ -185,7 +185,11 @@ def test_bench_file_parses_and_names_every_instrument_and_sample(bench):
         assert entry["resource"] == bench.resources[role]
         assert entry["profile"].startswith("generic-")
     assert [c["channel"] for c in doc["channel"]] == list(range(1, 9))
-    assert doc["channel"][0] == {"channel": 1, "sample_id": "FX-01", "part_id": "BD-1001"}
+    first = doc["channel"][0]
+    assert {k: first[k] for k in ("channel", "sample_id", "part_id")} == \
+        {"channel": 1, "sample_id": "FX-01", "part_id": "BD-1001"}
+    # the sample's age since its last heat, for the aging law (common practice to log it)
+    assert first["hours_since_heat_h"] == pytest.approx(bench.fixture.part(1).hours_since_heat_h(), rel=1e-5)
 
 
 def test_lot_bench_puts_each_sample_on_its_channel(rm):

@@ -4,6 +4,7 @@ within the uncertainty of the edge. The expected outcomes come from the simulate
 (instruments.sim SimulatedPart.true_settled_C_F) and the decision rules' definitions
 (ILAC-G8:09/2019, ISO 14253-1), not from the code under test."""
 
+import hashlib
 import json
 import math
 
@@ -12,7 +13,7 @@ import pytest
 
 from benchkit.cli import main
 from benchkit.codes import parse_tolerance
-from benchkit.errors import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_OK, EXIT_UNDECIDED
+from benchkit.errors import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_OK, EXIT_UNDECIDED, UserError
 from benchkit.verify import compare
 from benchkit.verify.claims import load_claim, parse_claim
 from benchkit.verify.decision import CONFORMING, NONCONFORMING, NOT_DECIDABLE
@@ -143,8 +144,11 @@ def test_demo_claim_files(tools, lot_samples):
     typical = load_claim(tools.REPO / "data" / "claims" / "BD-1004-typical.csv")
     v = compare.verify(typical, *lot_samples, typical.tolerance, "guarded")
     assert v.verdict == CONFORMING
-    # runs do not record the age since the last heat: flagged, not normalised
-    assert any("age of the sample not recorded" in f for f in v.samples[0].flags)
+    # runs record each sample's age since its last heat (420 h in the demo lot, invented), so
+    # the reading is referred to the claim's 1000 h by the aging law (common practice;
+    # EIA-198-1 clause 1.1.2: tolerances refer to 1000 h)
+    assert any("measured 420 h: measurement referred to 1000 h with the aging law" in f
+               for f in v.samples[0].flags), v.samples[0].flags
     optimistic = load_claim(tools.REPO / "data" / "claims" / "BD-1004-optimistic.csv")
     v = compare.verify(optimistic, *lot_samples, optimistic.tolerance, "guarded")
     assert v.verdict == NONCONFORMING
@@ -300,6 +304,14 @@ def test_flagged_points_are_left_out_and_said_so(tmp_path, tools, lot_truth):
     cells[14] = repr(float(cells[14]) * 1.3)  # a wrong reading the fit must not see
     lines[4] = ",".join(cells)
     pts.write_text("\n".join(lines) + "\n")
+    # points edited after the run ended no longer match run.json's sha256: refused, as
+    # `benchkit fit` and the library refuse them (benchkit.rundata)
+    with pytest.raises(UserError, match="sha256 differs"):
+        load_inputs([run], "BD-1004", model="tanh")
+    # as the sweep engine writes it: the flag set when measured, the sha256 at the end
+    meta = json.loads((run / "run.json").read_text())
+    meta["points_sha256"] = hashlib.sha256(pts.read_bytes()).hexdigest()
+    (run / "run.json").write_text(json.dumps(meta))
     samples, _ = load_inputs([run], "BD-1004", model="tanh")
     assert samples[0].points.bias_V.size == 10 and 7.5 not in samples[0].points.bias_V
     claim = parse_claim(tools.claim_text("BD-1004", tools.LOT_BIAS_V,

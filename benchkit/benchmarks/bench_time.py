@@ -1,0 +1,183 @@
+"""Bench time: a uniform sweep against settle detection plus adaptive bias steps.
+
+For each demo part, on a fresh simulated bench with a virtual clock (so a part starts from
+rest and an hour of dwell passes in no time, while every command still goes through pyvisa
+and TCP), two sweeps over the same range, 0 V to the top (the rated voltage rounded down to
+the uniform step) and back:
+
+- uniform: 0.5 V steps up and down, a fixed 5 s dwell, 3 readings per point;
+- adaptive: settle detection (the plan's [settle]) and adaptive steps (the plan's
+  [adaptive]), 3 readings per point.
+
+Both are fitted per branch with model "auto" (benchkit.adaptive.fit_branch: fits.fit_sweep
+with pooled per-point sigma) and compared with the bench's true settled curve over each fitted
+curve's valid range: the rising branch with SimBench.true_settled_C_F, the falling branch
+with the part's own true_settled_C_F(turn_V = top), because the sweep turns at its top while
+the bench's falling truth is that of a turn far out (the two differ over about twice the
+coercive voltage below the top). Errors are in percent of C0, the true rising value at 0 V.
+Bench time is the run's clock time from start to the end of the final ramp to 0 V
+(discharge wait 0 s in both plans, so it does not count for either).
+"""
+
+from __future__ import annotations
+
+import math
+import shutil
+import time
+from pathlib import Path
+
+import numpy as np
+
+UNIFORM_STEP_V = 0.5
+UNIFORM_DWELL_S = 5.0
+N_READINGS = 3
+LIMITS = {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 0.0}
+SETTLE = {"max_drift_pct_per_s": 0.01, "max_dwell_s": 60.0, "min_dwell_s": 0.5}
+ADAPTIVE = {"target_band_pct_of_C0": 0.5, "max_points": 40, "coarse_points": 7}
+TARGET_RATIO = 0.25
+TARGET_ERROR_PCT = 0.5
+ERROR_GRID_POINTS = 401
+QUICK_PARTS = ("BD-1001", "BD-1008")
+QUICK_TOP_V = 3.0  # --quick: only checks that everything runs, so short sweeps
+
+
+def top_V(rated_V: float, step_V: float = UNIFORM_STEP_V) -> float:
+    """The top of both sweeps: the rated voltage rounded down to a whole number of steps."""
+    return round(math.floor(rated_V / step_V + 1e-9) * step_V, 10)
+
+
+def uniform_plan(slot, top: float) -> dict:
+    return {
+        "name": f"bench-uniform-{slot['part_id']}",
+        "samples": [slot],
+        "bias": {"start_V": 0.0, "stop_V": top, "step_V": UNIFORM_STEP_V,
+                 "branches": ["rising", "falling"]},
+        "measure": {"dwell": "fixed", "dwell_s": UNIFORM_DWELL_S, "n_readings": N_READINGS},
+        "limits": dict(LIMITS),
+    }
+
+
+def adaptive_plan(slot, top: float, settle=None, adaptive=None) -> dict:
+    return {
+        "name": f"bench-adaptive-{slot['part_id']}",
+        "samples": [slot],
+        "bias": {"points_V": [0.0, top], "branches": ["rising", "falling"]},
+        "measure": {"dwell": "settle", "n_readings": N_READINGS},
+        "settle": dict(settle or SETTLE),
+        "adaptive": dict(adaptive or ADAPTIVE),
+        "limits": dict(LIMITS),
+    }
+
+
+def _truth(bench, channel: int, part, bias_V: float, branch: str, cond: dict, top: float) -> float:
+    if branch == "rising":
+        return bench.true_settled_C_F(channel, bias_V, "rising", freq_Hz=cond["freq_Hz"],
+                                      ac_level_Vrms=cond["ac_level_Vrms"], temp_C=25.0)
+    with bench.fixture.lock:
+        return part.true_settled_C_F(bias_V, "falling", freq_Hz=cond["freq_Hz"],
+                                     ac_level_Vrms=cond["ac_level_Vrms"], temp_C=25.0, turn_V=top)
+
+
+def run_one(plan_dict: dict, run_dir: Path, seed: int = 0) -> dict:
+    """One sweep on a fresh simulated bench; its bench time, points and fit errors."""
+    from benchkit.adaptive import fit_branch
+    from benchkit.plan import parse_plan
+    from benchkit.runlog import read_points, read_run
+    from benchkit.sweep import measured_point, run_sweep
+    from instruments.clock import VirtualClock
+    from instruments.sim import SimBench
+
+    plan = parse_plan(plan_dict, plan_dict["name"])
+    slot = plan_dict["samples"][0]
+    clock = VirtualClock()
+    wall0 = time.perf_counter()
+    with SimBench.demo(clock=clock, seed=seed) as bench:
+        t0 = clock.now()
+        result = run_sweep(bench, plan, run_dir, handle_signals=False)
+        bench_s = clock.now() - t0
+        wall_s = time.perf_counter() - wall0
+        if result.status != "complete":
+            raise RuntimeError(f"{plan.name}: sweep {result.status}: {result.reason}")
+        meta = read_run(run_dir)
+        rows, _ = read_points(run_dir)
+        cond = meta["samples"][0]["conditions"]
+        top = max(abs(float(r["bias_set_V"])) for r in rows)
+        points = [measured_point(r) for r in rows]
+        part = bench.fixture.part(slot["channel"])
+        C0 = _truth(bench, slot["channel"], part, 0.0, "rising", cond, top)
+        errors, models = {}, {}
+        for branch in ("rising", "falling"):
+            out = fit_branch(points, branch, "auto")
+            lo, hi = out.curve.valid_range_V
+            grid = np.linspace(lo, hi, ERROR_GRID_POINTS)
+            truth = np.array([_truth(bench, slot["channel"], part, v, branch, cond, top) for v in grid])
+            errors[branch] = float(np.max(np.abs(np.asarray(out.curve.C(grid)) - truth)) / C0 * 100.0)
+            models[branch] = out.curve.model
+    flags = [f for r in rows for f in r["flags"].split(";") if f]
+    rec = {
+        "bench_s": bench_s,
+        "points": len(rows),
+        "max_error_pct_of_C0": max(errors.values()),
+        "max_error_pct_of_C0_by_branch": errors,
+        "models": models,
+        "max_dwell_points": flags.count("max_dwell"),
+        "mean_settle_s": float(np.mean([float(r["settle_s"]) for r in rows])),
+        "wall_s": wall_s,
+        "run_dir": str(run_dir),
+    }
+    ad = meta["samples"][0].get("adaptive")
+    if ad is not None:
+        rec.update(stop_reason=ad["stop_reason"], passes=ad["passes"],
+                   band_pct_of_C0={b: s["band_pct_of_C0"] for b, s in ad["status"].items()})
+    return rec
+
+
+def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
+    """Both sweeps for each demo part (QUICK_PARTS up to QUICK_TOP_V with quick); by part id."""
+    from instruments.sim import parts as catalogue
+
+    cat = catalogue.load_parts(catalogue.DEMO_PARTS)
+    fixture = catalogue.load_fixture(catalogue.DEMO_FIXTURE, cat)
+    wanted = list(parts) if parts else (list(QUICK_PARTS) if quick else [s.part_id for s in fixture])
+    runs = Path(out_dir) / "runs"
+    if runs.exists():
+        shutil.rmtree(runs)  # this benchmark's own run directories from a previous run
+    results = {}
+    for slot in fixture:
+        if slot.part_id not in wanted:
+            continue
+        sref = {"sample_id": slot.sample_id, "part_id": slot.part_id, "channel": slot.channel}
+        top = top_V(cat[slot.part_id].rated_V)
+        if quick:
+            top = min(top, QUICK_TOP_V)
+        u = run_one(uniform_plan(sref, top), runs / slot.part_id / "uniform")
+        a = run_one(adaptive_plan(sref, top), runs / slot.part_id / "adaptive")
+        ratio = a["bench_s"] / u["bench_s"]
+        results[slot.part_id] = {
+            "description": cat[slot.part_id].description,
+            "top_V": top,
+            "uniform": u,
+            "adaptive": a,
+            "bench_time_ratio": ratio,
+            "meets_time_target": ratio <= TARGET_RATIO,
+            "meets_error_target": a["max_error_pct_of_C0"] <= TARGET_ERROR_PCT,
+        }
+        log(f"bench time {slot.part_id}: uniform {u['bench_s']:.0f} s / {u['points']} points, "
+            f"adaptive {a['bench_s']:.0f} s / {a['points']} points, ratio {ratio:.2f}, "
+            f"max error {u['max_error_pct_of_C0']:.3f} % / {a['max_error_pct_of_C0']:.3f} % of C0")
+    missing = sorted(set(wanted) - set(results))
+    if missing:
+        raise ValueError(f"no demo part {', '.join(missing)} on the demo fixture")
+    tot_u = sum(r["uniform"]["bench_s"] for r in results.values())
+    tot_a = sum(r["adaptive"]["bench_s"] for r in results.values())
+    return {
+        "what": "bench seconds of a uniform sweep (0.5 V steps, fixed 5 s dwell) against settle "
+                "detection plus adaptive steps; max |fit - true settled curve| in % of C0",
+        "settings": {"uniform_step_V": UNIFORM_STEP_V, "uniform_dwell_s": UNIFORM_DWELL_S,
+                     "n_readings": N_READINGS, "settle": SETTLE, "adaptive": ADAPTIVE,
+                     "limits": LIMITS},
+        "target": {"max_bench_time_ratio": TARGET_RATIO, "max_error_pct_of_C0": TARGET_ERROR_PCT},
+        "parts": results,
+        "total": {"uniform_bench_s": tot_u, "adaptive_bench_s": tot_a,
+                  "bench_time_ratio": tot_a / tot_u if tot_u else None},
+    }

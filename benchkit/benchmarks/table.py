@@ -1,0 +1,85 @@
+"""The readable table of a benchmark run (printed and saved as bench.txt)."""
+
+from __future__ import annotations
+
+
+def _f(v, fmt: str, none: str = "-") -> str:
+    return none if v is None else format(v, fmt)
+
+
+def format_table(results: dict) -> str:
+    m, g = results["machine"], results["git"]
+    lines = [
+        f"benchkit benchmarks {results['date_utc']}" + ("  (--quick)" if results.get("quick") else ""),
+        f"commit {g.get('commit') or 'unknown'}{' (uncommitted changes)' if g.get('dirty') else ''}",
+        f"machine {m['platform']}, {m['cpu_count']} CPUs, Python {m['python']}",
+        "",
+    ]
+    b = results["benchmarks"]
+    bt = b.get("bench_time")
+    if bt is not None:
+        lines.append("Bench time: uniform (0.5 V steps, fixed 5 s dwell) vs settle detection + adaptive steps")
+        if "error" in bt:
+            lines.append(f"  FAILED: {bt['error']}")
+        else:
+            t = bt["target"]
+            lines.append(f"  target: ratio <= {t['max_bench_time_ratio']:g}, adaptive max error <= "
+                         f"{t['max_error_pct_of_C0']:g} % of C0 (vs the true settled curve, both branches)")
+            head = (f"  {'part':8} {'top V':>5} | {'uniform s':>9} {'pts':>4} {'err %C0':>7} | "
+                    f"{'adaptive s':>10} {'pts':>4} {'pass':>4} {'err %C0':>7} {'band':>5} | "
+                    f"{'ratio':>5}  time/err  stop")
+            lines += [head, "  " + "-" * (len(head) - 2)]
+            for pid, r in bt["parts"].items():
+                u, a = r["uniform"], r["adaptive"]
+                band = max((v for v in (a.get("band_pct_of_C0") or {}).values() if v is not None),
+                           default=None)
+                ok = ("yes" if r["meets_time_target"] else "no") + "/" + \
+                     ("yes" if r["meets_error_target"] else "no")
+                lines.append(
+                    f"  {pid:8} {r['top_V']:5g} | {u['bench_s']:9.0f} {u['points']:4d} "
+                    f"{u['max_error_pct_of_C0']:7.3f} | {a['bench_s']:10.0f} {a['points']:4d} "
+                    f"{a.get('passes', 0):4d} {a['max_error_pct_of_C0']:7.3f} {_f(band, '5.2f')} | "
+                    f"{r['bench_time_ratio']:5.2f}  {ok:8}  {a.get('stop_reason')}"
+                    + (f"; {a['max_dwell_points']} point(s) at max dwell" if a.get("max_dwell_points") else ""))
+            tot = bt["total"]
+            lines.append(f"  all parts: uniform {tot['uniform_bench_s']:.0f} s, adaptive "
+                         f"{tot['adaptive_bench_s']:.0f} s, ratio {_f(tot['bench_time_ratio'], '.2f')}")
+            lines.append("  (err: max |fit - truth| over the fit's range, worse branch; band: adaptive "
+                         "k=2 band incl. prediction check at stop, % of C0)")
+        lines.append("")
+    ov = b.get("overhead")
+    if ov is not None:
+        lines.append("Software overhead per measured point (virtual clock: no dwell)")
+        if "error" in ov:
+            lines.append(f"  FAILED: {ov['error']}")
+        else:
+            lines.append(f"  bare pyvisa-py *IDN? round trip (median of {ov['idn_queries']}): "
+                         f"{ov['idn_round_trip_s'] * 1e6:.0f} us")
+            lines.append(f"  engine wall time per point ({ov['engine_points']} points, "
+                         f"{ov['n_readings']} readings each): {ov['engine_point_wall_s'] * 1e3:.2f} ms")
+            lines.append(f"  ratio: {ov['overhead_ratio']:.0f} round trips per point")
+        lines.append("")
+    fs = b.get("fits")
+    if fs is not None:
+        lines.append("Fits per second, 41-point sweep: fits.fit_sweep vs bare scipy.optimize.curve_fit")
+        if "error" in fs:
+            lines.append(f"  FAILED: {fs['error']}")
+        else:
+            lines.append(f"  {'model':8} {'fit_sweep/s':>12} {'curve_fit/s':>12} {'ratio':>7}")
+            for name, r in fs["models"].items():
+                lines.append(f"  {name:8} {r['fit_sweep_per_s']:12.1f} {r['curve_fit_per_s']:12.1f} "
+                             f"{r['curve_fit_over_fit_sweep']:7.1f}")
+            lines.append(f"  auto (three families, BIC choice): {fs['auto_fit_sweep_per_s']:.1f} fits/s")
+        lines.append("")
+    lq = b.get("library_query")
+    if lq is not None:
+        lines.append("Library query")
+        if "error" in lq:
+            lines.append(f"  FAILED: {lq['error']}")
+        else:
+            lines.append(f"  {lq['n_curves']} curves ({lq['n_parts']} parts): query "
+                         f"{lq['query_warm_s'] * 1e3:.1f} ms warm, {lq['query_cold_s'] * 1e3:.1f} ms cold; "
+                         f"per-curve loop {lq['loop_s']:.2f} s ({lq['loop_over_query']:.0f}x the warm query); "
+                         f"build {lq['build_s']:.1f} s")
+        lines.append("")
+    return "\n".join(lines)

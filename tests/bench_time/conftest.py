@@ -1,0 +1,8 @@
+"""Fixtures of the bench-time tests; the helpers live in bench_time_helpers.py."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))

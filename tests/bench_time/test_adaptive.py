@@ -1,0 +1,134 @@
+"""Adaptive bias steps (benchkit/adaptive.py) on the physics of the simulated part.
+
+Facts the checks rest on: a class-2 part is hysteretic (Miller-type branches [published:
+S. L. Miller et al., J. Appl. Phys. 68, 6463 (1990)]), so within a branch the bias moves one
+way only; the deviation of a chord from a curve over a gap h is |C''|*h^2/8 (the linear
+interpolation error bound [published: numerical analysis texts, e.g. Burden & Faires,
+from memory]), so a curve that bends needs closer points; the truth is the simulator's
+noise-free settled curve (SimulatedPart.true_settled_C_F), not the fit.
+"""
+
+import numpy as np
+import pytest
+
+from benchkit.adaptive import (
+    STOP_BUDGET, STOP_TARGET, AdaptiveSettings, LoopPlanner, MeasuredPoint, fit_branch,
+)
+from benchkit.settle import SettleDetector
+
+from bench_time_helpers import PhysicsBench, part_spec, run_adaptive
+
+SETTLE = SettleDetector(0.01, 60.0, 0.5)  # the plan values of the issue
+SETTINGS = AdaptiveSettings(target_band_pct_of_C0=0.5, max_points=40, coarse_points=7)
+
+
+def adaptive_run(spec, settings=SETTINGS, seed=0):
+    bench = PhysicsBench(spec, seed)
+    planner = LoopPlanner(spec.rated_V, settings)
+    points, passes, last = run_adaptive(bench, planner, SETTLE)
+    return bench, planner, points, passes, last
+
+
+@pytest.fixture(scope="module")
+def sharp_knee():
+    # a 50 V part whose capacitance falls within its first 10 V and is nearly flat above
+    # (low characteristic field): the knee and the flat tail of the issue
+    spec = part_spec("BD-1007", char_field_V_per_m=0.3e6, bias_floor_frac=0.3)
+    return (spec,) + adaptive_run(spec)
+
+
+def test_first_pass_is_an_even_coarse_loop():
+    p = LoopPlanner(6.3, SETTINGS).first_pass()
+    rising = [v for b, v in p.points if b == "rising"]
+    falling = [v for b, v in p.points if b == "falling"]
+    assert rising == pytest.approx(np.linspace(0, 6.3, 7))  # coarse_points from 0 V to the top
+    assert falling == pytest.approx(np.linspace(0, 6.3, 7)[-2::-1])  # back down, top = the turn
+    neg = LoopPlanner(-10.0, SETTINGS).first_pass()
+    assert max(v for _, v in neg.points) == 0.0 and min(v for _, v in neg.points) == -10.0
+
+
+def test_bias_moves_one_way_within_each_branch_of_every_pass(sharp_knee):
+    _, _, _, _, passes, _ = sharp_knee
+    assert len(passes) >= 2
+    for p in passes:
+        rising = [abs(v) for b, v in p.points if b == "rising"]
+        falling = [abs(v) for b, v in p.points if b == "falling"]
+        assert rising == sorted(rising) and len(set(rising)) == len(rising)
+        assert falling == sorted(falling, reverse=True) and len(set(falling)) == len(falling)
+        kinds = [b for b, _ in p.points]
+        assert kinds == sorted(kinds, key=lambda b: b != "rising")  # rising leg, then falling
+
+
+def test_more_points_per_volt_in_the_knee_than_in_the_flat_tail(sharp_knee):
+    spec, bench, _, points, _, _ = sharp_knee
+    V = np.linspace(0.0, spec.rated_V, 501)
+    C = np.array([bench.part.true_settled_C_F(v, "rising", None) for v in V])
+    bend = np.abs(np.gradient(np.gradient(C, V), V))
+    knee = (0.0, 12.5)
+    tail = (25.0, 50.0)
+    # the truth bends much more in the knee than in the tail (chord error |C''| h^2/8)
+    assert bend[(V >= 2.0) & (V <= knee[1])].max() > 10 * bend[V >= tail[0]].max()
+    mags = np.array([abs(p.bias_V) for p in points])
+    per_V = {name: np.sum((mags >= lo) & (mags <= hi)) / (hi - lo)
+             for name, (lo, hi) in (("knee", knee), ("tail", tail))}
+    assert per_V["knee"] > 1.5 * per_V["tail"], per_V
+
+
+def test_refinement_rising_points_stay_above_the_remanent_bias(sharp_knee):
+    _, _, planner, _, passes, _ = sharp_knee
+    assert planner.remanent_V is not None
+    for p in passes[1:]:
+        assert all(abs(v) >= abs(planner.remanent_V) for b, v in p.points if b == "rising")
+
+
+def test_stops_at_the_point_budget():
+    spec = part_spec("BD-1004")
+    settings = AdaptiveSettings(target_band_pct_of_C0=0.001, max_points=18, coarse_points=5)
+    _, _, points, passes, last = adaptive_run(spec, settings)
+    assert last.stop_reason == STOP_BUDGET
+    assert len(points) == 18 and len(passes) >= 2  # the budget counts every point of the sample
+
+
+def test_stops_when_the_band_is_inside_the_target():
+    spec = part_spec("BD-1008")  # C0G: flat, the coarse loop already pins it down
+    _, _, points, passes, last = adaptive_run(spec, AdaptiveSettings(5.0, 40, 7))
+    assert last.stop_reason == STOP_TARGET and len(passes) == 1 and len(points) == 13
+    assert all(st.band_pct_of_C0 <= 5.0 for st in last.status.values())
+
+
+def test_adaptive_curves_agree_with_the_true_settled_curve():
+    spec = part_spec("BD-1004")
+    bench, planner, points, _, last = adaptive_run(spec)
+    assert last.stop_reason == STOP_TARGET
+    C0 = bench.part.true_settled_C_F(0.0, "rising", None)
+    for branch in ("rising", "falling"):
+        curve = fit_branch(points, branch).curve
+        lo, hi = curve.valid_range_V
+        V = np.linspace(lo, hi, 200)
+        truth = np.array([bench.part.true_settled_C_F(v, branch, None,
+                                                      turn_V=spec.rated_V if branch == "falling" else None)
+                          for v in V])
+        err = np.max(np.abs(curve.C(V) - truth)) / C0 * 100.0
+        assert err <= 0.5, (branch, err)  # the issue's accuracy target, % of C0
+
+
+def test_planner_is_deterministic_for_a_replay():
+    # the engine resumes an adaptive run by feeding a fresh planner the rows on disk
+    spec = part_spec("BD-1006")
+    _, planner, points, passes, _ = adaptive_run(spec)
+    replay = LoopPlanner(spec.rated_V, SETTINGS)
+    replay.first_pass()
+    n = len(passes[0].points)
+    nxt = replay.next_pass(points[:n])
+    assert nxt.points == passes[1].points
+
+
+def test_budget_below_the_coarse_loop_is_refused():
+    with pytest.raises(ValueError, match="max_points"):
+        AdaptiveSettings(0.5, max_points=10, coarse_points=7)
+    with pytest.raises(ValueError, match="coarse_points"):
+        AdaptiveSettings(0.5, max_points=40, coarse_points=2)
+    with pytest.raises(ValueError, match="top bias"):
+        LoopPlanner(0.0, SETTINGS)
+    m = MeasuredPoint("rising", 1.0, 1e-6, None)
+    assert m.sigma_F is None

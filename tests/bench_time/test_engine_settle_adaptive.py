@@ -1,0 +1,173 @@
+"""Settle detection and adaptive steps inside the sweep engine, on the simulated bench
+through pyvisa-py over loopback TCP, on a virtual clock."""
+
+import math
+
+import pytest
+
+from benchkit.errors import UserError
+from benchkit.plan import parse_plan
+from benchkit.runlog import FLAGS
+from benchkit.sweep import load_parts_catalogue, resume_sweep, run_sweep
+from instruments.clock import VirtualClock
+from instruments.sim import Fault, SimBench
+
+from bench_time_helpers import CtrlCAfter, read_meta, read_rows
+
+PARTS = load_parts_catalogue()
+LIMITS = {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 0.0}
+SETTLE = {"max_drift_pct_per_s": 0.01, "max_dwell_s": 60.0, "min_dwell_s": 0.5}
+ADAPTIVE = {"target_band_pct_of_C0": 0.5, "max_points": 40, "coarse_points": 7}
+FX03 = {"sample_id": "FX-03", "part_id": "BD-1003", "channel": 3}  # 10 uF 6.3 V X7R
+FX05 = {"sample_id": "FX-05", "part_id": "BD-1005", "channel": 5}  # 22 uF 10 V X5R
+
+
+def plan(sample, bias, settle=None, adaptive=None, **measure):
+    raw = {"name": "t", "samples": [sample], "bias": bias,
+           "measure": {"dwell": "settle", "n_readings": 3, **measure},
+           "settle": dict(SETTLE, **(settle or {})), "limits": dict(LIMITS)}
+    if adaptive is not None:
+        raw["adaptive"] = adaptive
+    return parse_plan(raw, "test plan")
+
+
+def safe(bench):
+    return bench.supply_state() == {"set_V": 0.0, "output_on": False, "terminal_V": 0.0}
+
+
+def test_settle_rows_record_settle_time_and_final_drift(tmp_path):
+    p = plan(FX03, {"start_V": 0.0, "stop_V": 4.0, "step_V": 2.0})
+    clock = VirtualClock()
+    with SimBench.demo(clock=clock) as bench:
+        res = run_sweep(bench, p, tmp_path / "run", clock, parts=PARTS, handle_signals=False)
+        assert res.status == "complete" and safe(bench)
+    rows = read_rows(tmp_path / "run")
+    meta = read_meta(tmp_path / "run")
+    assert meta["flags_vocabulary"]["max_dwell"] == FLAGS["max_dwell"]
+    settle = [float(r["settle_s"]) for r in rows]
+    assert all(0.5 <= s < 60.0 for s in settle)  # between min and max dwell
+    assert len(set(settle)) > 1  # it watched the part: not one fixed time
+    assert all(float(r["dwell_s"]) == 60.0 for r in rows)  # the longest it was allowed
+    for r in rows:
+        assert r["flags"] == "" and abs(float(r["drift_pct_per_s"])) <= 0.01
+    # a step into the knee drifts longer than the step at 0 V (nothing to relax there)
+    assert settle[0] < settle[1]
+
+
+def test_instrument_that_never_settles_ends_each_point_at_max_dwell(tmp_path):
+    # the chamber ramps by 60 degC per minute (temp-drift fault): an X7R part's C moves by
+    # about 0.04 % per second with it (its tempco of ~1.5 % over 25..60 degC, from the demo
+    # catalogue's EIA X7R curve), four times the threshold, for the whole sweep. At 0 V, so
+    # no bias relaxation (of the other sign) can cancel it by chance.
+    p = plan(FX03, {"points_V": [0.0], "branches": ["rising"], "repeats": 2},
+             settle={"max_dwell_s": 8.0})
+    clock = VirtualClock()
+    with SimBench.demo(clock=clock, faults=[Fault.parse("temp-drift:after=0:rate=60")]) as bench:
+        res = run_sweep(bench, p, tmp_path / "run", clock, parts=PARTS, handle_signals=False)
+        assert res.status == "complete" and safe(bench)
+    rows = read_rows(tmp_path / "run")
+    assert len(rows) == 2
+    for r in rows:
+        assert "max_dwell" in r["flags"].split(";")
+        assert 8.0 <= float(r["settle_s"]) <= 8.5
+        assert abs(float(r["drift_pct_per_s"])) > 0.01
+
+
+@pytest.fixture(scope="module")
+def adaptive_run(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("adaptive")
+    p = plan(FX05, {"points_V": [0.0, 10.0]}, adaptive=dict(ADAPTIVE))
+    clock = VirtualClock()
+    with SimBench.demo(clock=clock) as bench:
+        res = run_sweep(bench, p, tmp / "run", clock, parts=PARTS, handle_signals=False)
+        ok = safe(bench)
+    return res, read_rows(tmp / "run"), read_meta(tmp / "run"), ok
+
+
+def test_adaptive_run_records_why_it_stopped(adaptive_run):
+    res, rows, meta, ok = adaptive_run
+    assert res.status == "complete" and ok and res.n_points == len(rows) == res.n_planned
+    ad = meta["samples"][0]["adaptive"]
+    assert ad["stop_reason"] in ("target met", "point budget reached")
+    assert ad["n_points"] == len(rows) <= ADAPTIVE["max_points"]
+    passes = [e for e in meta["events"] if e["event"] == "adaptive_pass"]
+    assert passes[-1]["stop_reason"] == ad["stop_reason"] and passes[-1]["points_V"] == []
+    assert ad["passes"] == max(int(r["repeat"]) for r in rows) >= 2
+    if ad["stop_reason"] == "target met":
+        assert all(s["band_pct_of_C0"] <= 0.5 for s in ad["status"].values())
+
+
+def test_adaptive_passes_are_monotonic_loops_that_turn_at_the_top(adaptive_run):
+    _, rows, meta, _ = adaptive_run
+    by_pass = {}
+    for r in rows:
+        by_pass.setdefault(int(r["repeat"]), []).append((r["branch"], float(r["bias_set_V"])))
+    for k, pts in by_pass.items():
+        rising = [v for b, v in pts if b == "rising"]
+        falling = [v for b, v in pts if b == "falling"]
+        assert rising == sorted(rising) and falling == sorted(falling, reverse=True)
+        assert [b for b, _ in pts] == ["rising"] * len(rising) + ["falling"] * len(falling)
+    assert max(v for b, v in by_pass[1] if b == "rising") == 10.0  # pass 1 reaches the top
+    turns = [e for e in meta["events"] if e["event"] == "adaptive_turn"]
+    later_falling = [k for k, pts in by_pass.items() if k >= 2 and any(b == "falling" for b, _ in pts)]
+    assert sorted({e["pass_index"] for e in turns if e["bias_V"] == 10.0}) == later_falling
+    steps = [int(r["step_index"]) for r in rows]
+    assert steps == list(range(len(rows)))  # one row per planned point, in order
+
+
+def test_adaptive_run_resumes_the_pass_it_was_in(tmp_path):
+    p = plan(FX05, {"points_V": [0.0, 10.0]}, adaptive=dict(ADAPTIVE))
+    clock = VirtualClock()
+    with SimBench.demo(clock=clock) as bench:
+        res = run_sweep(bench, p, tmp_path / "run", clock, CtrlCAfter(15), parts=PARTS)
+        assert res.status == "aborted" and safe(bench)
+        first = read_meta(tmp_path / "run")
+        planned2 = next(e for e in first["events"] if e["event"] == "adaptive_pass" and e["pass"] == 2)
+        assert len(read_rows(tmp_path / "run")) == 15 and len(planned2["points_V"]) > 2
+        res2 = resume_sweep(tmp_path / "run", bench, clock)
+        assert res2.status == "complete" and safe(bench)
+    rows = read_rows(tmp_path / "run")
+    keys = [(r["repeat"], r["step_index"]) for r in rows]
+    assert len(set(keys)) == len(keys) == res2.n_points
+    # the resumed session measured exactly the pass the first session had planned
+    got2 = [[r["branch"], float(r["bias_set_V"])] for r in rows if r["repeat"] == "2"]
+    assert got2 == planned2["points_V"]
+    assert rows[15]["flags"] == "resumed"
+    assert read_meta(tmp_path / "run")["samples"][0]["adaptive"]["stop_reason"]
+
+
+@pytest.mark.parametrize("change, field", [
+    ({"measure": {"dwell": "settle"}, "settle": None}, "'settle'"),
+    ({"settle": {"max_drift_pct_per_s": 0.01}}, "settle.max_dwell_s"),
+    ({"settle": {"max_drift_pct_per_s": 0.01, "max_dwell_s": 1.0, "min_dwell_s": 5.0}}, "settle.min_dwell_s"),
+    ({"settle": {"max_drift_pct_per_s": 0.01, "max_dwell_s": 9, "wait": 1}}, "settle.wait"),
+    ({"adaptive": {"max_points": 40}}, "adaptive.target_band_pct_of_C0"),
+    ({"adaptive": {"target_band_pct_of_C0": 0.5, "max_points": 8}}, "adaptive.max_points"),
+    ({"adaptive": {"target_band_pct_of_C0": 0.5, "model": "table"}}, "adaptive.model"),
+    ({"adaptive": {"target_band_pct_of_C0": 0.5}, "bias": {"points_V": [0.0, 4.0], "polarity": "both"}}, "bias.polarity"),
+    ({"adaptive": {"target_band_pct_of_C0": 0.5}, "bias": {"points_V": [0.0, 4.0], "repeats": 2}}, "bias.repeats"),
+    ({"adaptive": {"target_band_pct_of_C0": 0.5}, "bias": {"points_V": [1.0, 4.0]}}, "'bias'"),
+])
+def test_bad_settle_or_adaptive_tables_are_refused_naming_the_field(change, field):
+    raw = {"name": "t", "bias": {"points_V": [0.0, 4.0]},
+           "measure": {"dwell": "settle", "n_readings": 3}, "settle": dict(SETTLE),
+           "limits": dict(LIMITS)}
+    for k, v in change.items():
+        if v is None:
+            raw.pop(k)
+        elif isinstance(raw.get(k), dict) and k in ("measure", "bias"):
+            raw[k] = dict(raw[k], **v)
+        else:
+            raw[k] = v
+    with pytest.raises(UserError) as exc:
+        parse_plan(raw, "plan.toml")
+    assert str(exc.value).startswith("plan.toml: field ") and field in str(exc.value)
+
+
+def test_fixed_dwell_plans_are_unchanged_by_the_new_tables():
+    raw = {"name": "t", "bias": {"points_V": [0.0, 4.0]}, "measure": {"dwell_s": 1.0},
+           "limits": dict(LIMITS)}
+    p = parse_plan(raw, "plan.toml")
+    assert p.settle is None and p.adaptive is None and "settle" not in p.data
+    with pytest.raises(UserError, match="'settle': given but measure.dwell"):
+        parse_plan(dict(raw, settle=dict(SETTLE)), "plan.toml")
