@@ -28,8 +28,10 @@ target, placed in the gaps ranked by max(band in the gap, chord deviation |C''|*
 gap), so points go where the fit is least certain or where the curve bends most (in the
 middle half of the gap: at the widest band, or in the middle when the bend ranks it).
 It stops when both bands are inside the target ("target met"), when the plan's point budget
-`max_points` (all points of the sample) is used up ("point budget reached"), or when no gap
-is wide enough for another point at `resolution_V` ("resolution limit").
+`max_points` (all points of the sample) is used up ("point budget reached"), when no gap
+is wide enough for another point at `resolution_V` ("resolution limit"), or when a
+refinement pass narrowed the worst band by less than MIN_PASS_GAIN ("no progress": the band
+is then held up by the data, not by the spacing, and another loop costs two turning points).
 
 History. Every pass turns at the same top, so all falling points follow one falling
 branch. Just after the turn the reading stays nearly flat until the bias has come down by
@@ -60,6 +62,12 @@ GRID_POINTS = 401  # where the band and the curvature of a fit are looked at
 STOP_TARGET = "target met"
 STOP_BUDGET = "point budget reached"
 STOP_RESOLUTION = "resolution limit: no gap wide enough for another point"
+STOP_STALLED = "no progress: the last pass did not narrow the band"
+# A refinement pass that narrows the worst band by less than this fraction is not repeated:
+# the band is then set by the consistency of the data (noise, relaxation left in the
+# readings, a law that does not follow the part), not by the spacing of the points, and one
+# more loop (two turning points and their waits) buys nothing.
+MIN_PASS_GAIN = 0.1
 
 
 @dataclass(frozen=True)
@@ -245,6 +253,8 @@ class LoopPlanner:
         room = self.s.max_points - len(points)
         if room <= 0:
             return self._record(PassPlan(index, [], STOP_BUDGET, status, self.remanent_V))
+        if index >= 3 and corner is None and self._stalled(status, failing):
+            return self._record(PassPlan(index, [], STOP_STALLED, status, self.remanent_V))
         chosen: list[tuple[float, str, float]] = []  # (priority, branch, magnitude)
         for b in failing:
             cands = gaps[b]
@@ -262,6 +272,13 @@ class LoopPlanner:
         pts = [("rising", self._signed(m)) for m in rising]
         pts += [("falling", self._signed(m)) for m in falling]
         return self._record(PassPlan(index, pts, None, status, self.remanent_V))
+
+    def _stalled(self, status, failing) -> bool:
+        """The worst failing band is not MIN_PASS_GAIN narrower than after the pass before."""
+        prev = self.history[-1].status if self.history else {}
+        now = max(status[b].band_pct_of_C0 for b in failing)
+        before = max((prev[b].band_pct_of_C0 for b in failing if b in prev), default=math.inf)
+        return math.isfinite(before) and now > (1.0 - MIN_PASS_GAIN) * before
 
     @property
     def falling_top_V(self) -> float | None:
@@ -455,4 +472,4 @@ class LoopPlanner:
 
 __all__ = ["AdaptiveSettings", "LoopPlanner", "MeasuredPoint", "BranchStatus", "PassPlan",
            "branch_data", "fit_branch", "band_pct_of_C0", "curvature_per_V2",
-           "STOP_TARGET", "STOP_BUDGET", "STOP_RESOLUTION"]
+           "STOP_TARGET", "STOP_BUDGET", "STOP_RESOLUTION", "STOP_STALLED", "MIN_PASS_GAIN"]

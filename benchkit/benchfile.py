@@ -16,14 +16,8 @@ from typing import Any, Mapping
 
 from benchkit.errors import UserError
 from benchkit.plan import SampleRef
+from instruments.roles import DEFAULT_PROFILES, ROLES
 
-ROLES = ("meter", "supply", "scanner", "thermometer")
-DEFAULT_PROFILES = {
-    "meter": "generic-lcr",
-    "supply": "generic-dc-supply",
-    "scanner": "generic-scanner",
-    "thermometer": "generic-thermometer",
-}
 
 
 @dataclass(frozen=True)

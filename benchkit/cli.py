@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import argparse
 import importlib
-import os
 import sys
 
 from benchkit import __version__
@@ -66,7 +65,10 @@ def main(argv: list[str] | None = None) -> int:
         print("benchkit: interrupted", file=sys.stderr)
         return 130
     except BrokenPipeError:  # output piped into a reader that stopped early (e.g. `| head`)
-        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        try:
+            sys.stdout.close()  # nothing more can reach the reader; no second error at exit
+        except BrokenPipeError:
+            pass
         return 1
 
 

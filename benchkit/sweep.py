@@ -23,7 +23,7 @@ import contextlib
 import math
 import sys
 import uuid
-from dataclasses import dataclass, fields, is_dataclass
+from dataclasses import dataclass, fields
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Mapping, Protocol
@@ -53,6 +53,7 @@ from benchkit.safety import (
     arm_last_resort,
     disarm_last_resort,
 )
+from instruments.sim.parts import PartSpec, catalogue_dict
 
 CURRENT_LIMIT_FRACTION = 0.98  # |I| at or above this share of the limit: the supply is limiting
 
@@ -124,27 +125,6 @@ class RunResult:
     @property
     def exit_code(self) -> int:
         return EXIT_OK if self.status == "complete" else EXIT_FAILED
-
-
-@dataclass(frozen=True)
-class CataloguePart:
-    """A part as recorded in run.json (what a resume needs of the catalogue)."""
-
-    id: str
-    description: str
-    nominal_C_F: float
-    tolerance: str
-    rated_V: float
-    class_code: str
-    case: str
-    supplier: str
-
-
-def part_record(part: Any) -> dict:
-    """Catalogue fields of a part as plain data (no simulation parameters)."""
-    if is_dataclass(part):
-        return {f.name: getattr(part, f.name) for f in fields(part) if f.name != "sim"}
-    return dict(part)
 
 
 def load_parts_catalogue(path: str | Path | None = None) -> dict:
@@ -377,7 +357,7 @@ def _new_meta(plan, sweeps, inst, src, clock, wait_s, wait_how, extra) -> dict:
                 "part_id": sw.sample.part_id,
                 "channel": sw.sample.channel,
                 "hours_since_heat_h": sw.sample.hours_since_heat_h,
-                "part": part_record(sw.part),
+                "part": catalogue_dict(sw.part),
                 "conditions": {
                     "function": sw.conditions.function,
                     "freq_Hz": sw.conditions.freq_Hz,
@@ -408,7 +388,7 @@ def _samples_from_meta(meta: Mapping, run_dir) -> tuple[list[SampleRef], dict]:
         for s in meta["samples"]:
             samples.append(SampleRef(s["sample_id"], s["part_id"], int(s["channel"]),
                                      s.get("hours_since_heat_h")))
-            parts[s["part_id"]] = CataloguePart(**{f.name: s["part"][f.name] for f in fields(CataloguePart)})
+            parts[s["part_id"]] = PartSpec(**{f.name: s["part"][f.name] for f in fields(PartSpec) if f.name != "sim"})
     except (KeyError, TypeError, ValueError) as exc:
         raise UserError(f"{run_dir}/run.json: field 'samples' is incomplete ({exc}); cannot resume") from None
     return samples, parts

@@ -13,6 +13,7 @@ from typing import Iterable, Mapping, Sequence
 import numpy as np
 
 from instruments.clock import RealClock
+from instruments.roles import DEFAULT_PROFILES, ROLES
 from instruments.sim.dc_supply import DCSupplySim
 from instruments.sim.faults import Fault, FaultPlan
 from instruments.sim.fixture import BiasFixture, FixtureError, Wiring
@@ -21,13 +22,8 @@ from instruments.sim.scanner import ScannerSim
 from instruments.sim.server import InstrumentServer
 from instruments.sim.thermometer import ThermometerSim
 
-ROLE_ORDER = ("meter", "supply", "scanner", "thermometer")
-PROFILES = {
-    "meter": "generic-lcr",
-    "supply": "generic-dc-supply",
-    "scanner": "generic-scanner",
-    "thermometer": "generic-thermometer",
-}
+ROLE_ORDER = ROLES
+PROFILES = DEFAULT_PROFILES
 
 
 class SimBenchError(ValueError):
