@@ -248,10 +248,6 @@ class SettleDetector:
         if len(t) < MIN_FIT_READINGS or t[-1] - t[0] < self.window_s * (1 - 1e-9):
             return False
         self.last_residual = relaxation_residual(t, c, self.max_tau_s)
-        import os
-        if os.environ.get("HACK_REF"):
-            self._ref = max(getattr(self, "_ref", 0.0), max(c))
-            return self.last_residual.residual_pct * (c[-1] / self._ref) <= self.max_residual_pct_of_reading
         return self.last_residual.residual_pct <= self.max_residual_pct_of_reading
 
     def wait(self, clock, probe: Callable[[], float]) -> SettleResult:

@@ -22,7 +22,7 @@ import math
 import re
 from pathlib import Path
 
-from benchkit import rundata, runlog
+from benchkit import runlog
 from benchkit.atomic import write_bytes_atomic, write_text_atomic
 from benchkit.errors import UserError
 
@@ -95,6 +95,8 @@ def run(args) -> int:
                         f"{', '.join(sorted(runlog.FLAGS))})")
     if args.plot and Path(args.plot).suffix.lower() not in plots.FORMATS:
         raise UserError(f"--plot {args.plot}: use a .png or .pdf file name")
+    from benchkit import rundata  # numpy and the fits stack load only when fitting
+
     run_data = rundata.read_run_dir(run_dir, sample=args.sample, extra_flags=args.exclude_flag)
     meta, points_path, sha = run_data.meta, run_data.points_path, run_data.points_sha256
     samples = run_data.with_points()

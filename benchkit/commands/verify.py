@@ -22,7 +22,7 @@ EPILOG = (
 
 
 def register(subparsers) -> None:
-    from benchkit.verify.compare import DEFAULT_METER_ACCURACY_PCT
+    from benchkit.verify.uncertainty import DEFAULT_METER_ACCURACY_PCT
 
     p = subparsers.add_parser(
         "verify", help="verify a supplier's claimed C(V) curve against measured samples",

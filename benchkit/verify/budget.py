@@ -13,7 +13,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import integrate
 
 from benchkit.codes import Tolerance, parse_class_code
 from benchkit.errors import UserError
@@ -187,6 +186,8 @@ def charge_time(C_of_V, resistor_ohm: float, step_V: float, fraction: float = 1 
     vs = float(step_V)
     if vs <= 0:
         raise UserError("the charging step must be a positive voltage")
+    from scipy import integrate  # loaded when asked: the CLI starts without scipy
+
     value, _ = integrate.quad(lambda v: float(C_of_V(v)) / (vs - v), 0.0, fraction * vs, limit=200)
     return float(resistor_ohm) * value
 

@@ -29,12 +29,7 @@ from benchkit.verify.decision import NOT_DECIDABLE, PointDecision, combine_verdi
 from benchkit.verify.lot import LotVerdict, lot_verdict, summarise
 from benchkit.verify.measured import MeasuredSample, Skipped
 from benchkit.verify.sampling import SamplingPlan
-from benchkit.verify.uncertainty import Budget, Component, rectangular
-
-# A typical basic accuracy of a bench LCR meter, read as a rectangular half-width
-# [from memory: bench LCR meters quote about 0.05-0.1 % basic accuracy; use your meter's
-# figure for its range, frequency and level].
-DEFAULT_METER_ACCURACY_PCT = 0.1
+from benchkit.verify.uncertainty import DEFAULT_METER_ACCURACY_PCT, Budget, Component, rectangular
 
 # Measurement conditions agree with the claim's when within these tolerances
 # [standard: IEC 60384-1 4.2.2 as quoted in detail specifications: frequency +-10 %,

@@ -14,6 +14,11 @@ import numpy as np
 
 from benchkit.errors import UserError
 
+# A typical basic accuracy of a bench LCR meter, read as a rectangular half-width
+# [from memory: bench LCR meters quote about 0.05-0.1 % basic accuracy; use your meter's
+# figure for its range, frequency and level].
+DEFAULT_METER_ACCURACY_PCT = 0.1
+
 DEFAULT_K = 2.0  # coverage factor for about 95 % coverage [standard: JCGM 100:2008, 6.3]
 
 
