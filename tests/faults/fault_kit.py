@@ -6,7 +6,12 @@ from __future__ import annotations
 import contextlib
 import csv
 import json
+import sys
 from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "sweep"))
+
+from sweep_helpers import plan_text as sweep_plan_text  # noqa: E402  (one plan writer for both)
 
 from benchkit.plan import build_sweeps, load_plan
 from benchkit.sweep import load_parts_catalogue
@@ -19,32 +24,9 @@ SAMPLES = [
 ]
 
 
-def toml_value(v) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, (int, float)):
-        return repr(v)
-    if isinstance(v, str):
-        return json.dumps(v)
-    if isinstance(v, list):
-        return "[" + ", ".join(toml_value(x) for x in v) + "]"
-    raise TypeError(v)
-
-
-def plan_text(samples=SAMPLES, bias=None, measure=None, limits=None, name="fault-plan") -> str:
+def plan_text(samples=SAMPLES, name="fault-plan", **sections) -> str:
     """0, 2, 4 V up and back down (5 points a sample), 1 s dwell, 2 readings a point."""
-    b = {"start_V": 0.0, "stop_V": 4.0, "step_V": 2.0, "branches": ["rising", "falling"]}
-    m = {"dwell_s": 1.0, "n_readings": 2}
-    lim = {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 0.5}
-    b.update(bias or {})
-    m.update(measure or {})
-    lim.update(limits or {})
-    out = [f"name = {toml_value(name)}", ""]
-    for s in samples or []:
-        out += ["[[samples]]"] + [f"{k} = {toml_value(v)}" for k, v in s.items()] + [""]
-    for title, table in (("bias", b), ("measure", m), ("limits", lim)):
-        out += [f"[{title}]"] + [f"{k} = {toml_value(v)}" for k, v in table.items()] + [""]
-    return "\n".join(out)
+    return sweep_plan_text(samples=samples, name=name, **sections)
 
 
 def write_plan(path: Path, **kw) -> Path:
