@@ -21,8 +21,8 @@ Layout (every field in SI units; see data/plans/demo.toml):
     dwell_s = 2.0; dwell = "fixed"; n_readings = 3
     function = "CPD"; freq_Hz = 1000.0; ac_level_Vrms = 1.0   # optional: default = standard
     [settle]                         # with dwell = "settle" (benchkit/settle.py)
-    max_drift_pct_per_s = 0.01; max_dwell_s = 60.0   # or max_residual_pct_of_reading, or both
-    max_residual_pct_of_reading = 0.1; max_tau_s = 20.0
+    max_drift_pct_per_s = 0.01; max_dwell_s = 60.0   # and/or a residual bound instead:
+    max_residual_pct_of_reading = 0.1; max_residual_pct_of_C0 = 0.05; max_tau_s = 20.0
     min_dwell_s = 0.5; window_s = 2.0; read_interval_s = 0.0
     [adaptive]                       # optional: adaptive bias steps (benchkit/adaptive.py)
     target_band_pct_of_C0 = 0.5; max_points = 40; coarse_points = 7
@@ -383,10 +383,12 @@ def _parse_settle(raw: Mapping, where: str) -> dict:
         # either threshold, or both: the drift rate, or the residual left (settle.py docstring)
         "max_residual_pct_of_reading": f.number("max_residual_pct_of_reading", default=None,
                                                 positive=True),
+        "max_residual_pct_of_C0": f.number("max_residual_pct_of_C0", default=None,
+                                           positive=True),
         "max_tau_s": f.number("max_tau_s", default=20.0, positive=True),
     }
-    st["max_drift_pct_per_s"] = f.number("max_drift_pct_per_s",
-                                         required=st["max_residual_pct_of_reading"] is None,
+    no_residual = st["max_residual_pct_of_reading"] is None and st["max_residual_pct_of_C0"] is None
+    st["max_drift_pct_per_s"] = f.number("max_drift_pct_per_s", required=no_residual,
                                          positive=True)
     st.update({
         "max_dwell_s": f.number("max_dwell_s", required=True, positive=True),

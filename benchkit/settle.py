@@ -43,6 +43,13 @@ exponential gives slope*max_tau_s (the patient side). The part counts as settled
 bound is within the threshold (and, if the plan also gives max_drift_pct_per_s, the drift
 rule holds too). The recorded reading is still the mean of the meter readings taken after
 the dwell: the fit only decides when to stop, it never replaces a measurement.
+
+`max_residual_pct_of_C0` is the same bound in percent of the sample's C0 instead of the
+reading: the first settled reading of the sample (its 0 V point in an adaptive plan, which
+starts at 0 V; the engine calls start_sample() before each sample). A C(V) target is usually
+set in percent of C0, and under bias the reading may be a tenth of C0: there a bound in
+percent of the reading asks ten times more than the target needs. Until the first point has
+settled the reading itself stands in for C0.
 """
 
 from __future__ import annotations
@@ -188,15 +195,19 @@ class SettleDetector:
 
     def __init__(self, max_drift_pct_per_s: float | None, max_dwell_s: float,
                  min_dwell_s: float = 0.5, window_s: float = 2.0, read_interval_s: float = 0.0,
-                 max_residual_pct_of_reading: float | None = None, max_tau_s: float = 20.0):
-        if max_drift_pct_per_s is None and max_residual_pct_of_reading is None:
-            raise ValueError("settle: give max_drift_pct_per_s or max_residual_pct_of_reading "
-                             "(or both)")
+                 max_residual_pct_of_reading: float | None = None, max_tau_s: float = 20.0,
+                 max_residual_pct_of_C0: float | None = None):
+        if (max_drift_pct_per_s is None and max_residual_pct_of_reading is None
+                and max_residual_pct_of_C0 is None):
+            raise ValueError("settle: give max_drift_pct_per_s, max_residual_pct_of_reading or "
+                             "max_residual_pct_of_C0")
         checks = [("max_dwell_s", max_dwell_s), ("window_s", window_s), ("max_tau_s", max_tau_s)]
         if max_drift_pct_per_s is not None:
             checks.append(("max_drift_pct_per_s", max_drift_pct_per_s))
         if max_residual_pct_of_reading is not None:
             checks.append(("max_residual_pct_of_reading", max_residual_pct_of_reading))
+        if max_residual_pct_of_C0 is not None:
+            checks.append(("max_residual_pct_of_C0", max_residual_pct_of_C0))
         for label, v in checks:
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
                 raise ValueError(f"settle: {label} must be a positive number, got {v!r}")
@@ -210,7 +221,10 @@ class SettleDetector:
                                     else float(max_drift_pct_per_s))
         self.max_residual_pct_of_reading = (None if max_residual_pct_of_reading is None
                                             else float(max_residual_pct_of_reading))
+        self.max_residual_pct_of_C0 = (None if max_residual_pct_of_C0 is None
+                                       else float(max_residual_pct_of_C0))
         self.max_tau_s = float(max_tau_s)
+        self.reference_C_F: float | None = None  # the sample's C0 (start_sample, wait)
         self.max_dwell_s = float(max_dwell_s)
         self.min_dwell_s = float(min_dwell_s)
         self.window_s = float(window_s)
@@ -227,7 +241,12 @@ class SettleDetector:
         """From the plan's normalised [settle] table (benchkit.plan)."""
         return cls(settle.get("max_drift_pct_per_s"), settle["max_dwell_s"],
                    settle["min_dwell_s"], settle["window_s"], settle["read_interval_s"],
-                   settle.get("max_residual_pct_of_reading"), settle.get("max_tau_s", 20.0))
+                   settle.get("max_residual_pct_of_reading"), settle.get("max_tau_s", 20.0),
+                   settle.get("max_residual_pct_of_C0"))
+
+    def start_sample(self) -> None:
+        """A new sample: its first settled reading becomes the C0 of max_residual_pct_of_C0."""
+        self.reference_C_F = None
 
     def settled(self, est: DriftEstimate) -> bool:
         """The drift rule: the drift, one standard error to the bad side, is within the
@@ -240,15 +259,21 @@ class SettleDetector:
     def residual_ok(self, times, values, t0: float) -> bool:
         """The residual rule on the dwell's readings from min_dwell_s on (module docstring);
         always true when the plan gives no residual threshold."""
-        if self.max_residual_pct_of_reading is None:
+        if self.max_residual_pct_of_reading is None and self.max_residual_pct_of_C0 is None:
             return True
         lo = t0 + self.min_dwell_s - 1e-9
         k = next((i for i, t in enumerate(times) if t >= lo), len(times))
         t, c = times[k:], values[k:]
         if len(t) < MIN_FIT_READINGS or t[-1] - t[0] < self.window_s * (1 - 1e-9):
             return False
-        self.last_residual = relaxation_residual(t, c, self.max_tau_s)
-        return self.last_residual.residual_pct <= self.max_residual_pct_of_reading
+        res = self.last_residual = relaxation_residual(t, c, self.max_tau_s)
+        if (self.max_residual_pct_of_reading is not None
+                and res.residual_pct > self.max_residual_pct_of_reading):
+            return False
+        if self.max_residual_pct_of_C0 is not None:
+            ref = self.reference_C_F or float(np.mean(c))
+            return res.residual_pct * float(np.mean(c)) / ref <= self.max_residual_pct_of_C0
+        return True
 
     def wait(self, clock, probe: Callable[[], float]) -> SettleResult:
         """Read until settled or max_dwell_s has passed since the call; return how long it took."""
@@ -271,6 +296,8 @@ class SettleDetector:
             if (est is not None and t - t0 >= self.min_dwell_s and self.settled(est)
                     and self.residual_ok(times, values, t0)):
                 self.last = SettleResult(t - t0, est, False, len(times))
+                if self.reference_C_F is None:
+                    self.reference_C_F = est.mean_C_F
                 return self.last
             if self.read_interval_s:
                 clock.sleep(self.read_interval_s)

@@ -768,6 +768,8 @@ class _Engine:
             self.supply.voltage_V = 0.0
             self.supply.output_on = True
             self.output_on = True
+        if hasattr(self.policy, "start_sample"):  # settle detection: the sample's own C0
+            self.policy.start_sample()
         self.log.event(self.t_s(), "sample_start", sample_id=sw.sample.sample_id, channel=sw.sample.channel)
         self.log.save()
 
