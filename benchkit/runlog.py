@@ -43,8 +43,8 @@ FLAGS = {
     "overload": "the meter reported overload (9.9E37) on at least one reading; those readings are left out",
     "temp_change": "temperature moved more than limits.temp_tolerance_C since the sample's first point",
     "resumed": "first point measured after the run was resumed; the part's bias history was restarted",
-    "max_dwell": "settle detection reached settle.max_dwell_s before the drift fell below "
-                 "settle.max_drift_pct_per_s: the point was read while the part may still drift",
+    "max_dwell": "settle detection reached settle.max_dwell_s before its settle rule was met "
+                 "(drift rate or predicted residual): the point was read while the part may still drift",
     "retried": "an instrument exchange of this point needed a retry (no reply, a garbled or late reply, "
                "or a reconnect after a dropped link); run.json events 'link_recovered' say which",
 }

@@ -35,9 +35,10 @@ C(t) = C_inf + A*exp(-(t - t_last)/tau) to the readings of the dwell itself (tho
 |A| = |C(t_last) - C_inf| (the distance of the latest reading from where it is going):
 for each tau on a log grid from RESIDUAL_TAU_MIN_FRAC of the readings' span up to
 `max_tau_s` the model is linear in (C_inf, A), so it is an ordinary least-squares fit; the
-taus the data do not exclude (sum of squares within RESIDUAL_PROFILE_DSSR residual variances
-of the best, a profile-likelihood interval, about two standard errors) are all kept, and the
-bound is the largest |A| + RESIDUAL_MARGIN_SE*u(A) among them, in percent of C_inf. A flat
+taus the data do not exclude (sum of squares within RESIDUAL_PROFILE_DSSR variances of one
+reading of the best, a profile-likelihood interval of about three standard errors; the
+variance is the larger of the fit's and the successive-difference estimate) are all kept,
+and the bound is the largest |A| + RESIDUAL_MARGIN_SE*u(A) among them, in percent of C_inf. A flat
 window of noise gives a small bound; a linear drift that the window cannot tell from a slow
 exponential gives slope*max_tau_s (the patient side). The part counts as settled when that
 bound is within the threshold (and, if the plan also gives max_drift_pct_per_s, the drift
@@ -69,7 +70,8 @@ MAX_DWELL_FLAG = "max_dwell"
 IDLE_READ_INTERVAL_S = 0.1
 MIN_FIT_READINGS = 8  # the residual fit has 3 parameters; a few more to see the noise
 RESIDUAL_MARGIN_SE = 2.0  # standard errors of the fitted residual added before comparing
-RESIDUAL_PROFILE_DSSR = 4.0  # taus kept: SSR <= SSR_min + this * residual variance (~2 sigma)
+RESIDUAL_PROFILE_DSSR = 9.0  # taus kept: SSR <= SSR_min + this * variance (~3 sigma: the
+# rule is checked at every reading, so a 2-sigma interval would be fooled now and then)
 RESIDUAL_TAU_MIN_FRAC = 0.05  # shortest tau tried, as a fraction of the readings' span
 RESIDUAL_TAU_GRID = 40
 
@@ -145,7 +147,11 @@ def relaxation_residual(t_s, C_F, max_tau_s: float) -> ResidualEstimate:
         raise ValueError("a residual estimate needs readings spread over time")
     dof = t.size - 3
     ssr_min = min(r[1] for r in rows)
-    var = max(ssr_min / dof, 1e-300)
+    # the scatter of one reading: from the fit, or from successive differences (which a
+    # smooth drift hardly touches [published: J. von Neumann, Ann. Math. Stat. 12, 367
+    # (1941), mean square successive difference]), whichever is larger: a fit that happens
+    # to follow the noise must not make the profile look narrower than it is
+    var = max(ssr_min / dof, float(np.mean(np.diff(y) ** 2)) / 2.0, 1e-300)
     kept = [r for r in rows if r[1] <= ssr_min + RESIDUAL_PROFILE_DSSR * var]
     best = min(rows, key=lambda r: r[1])
     bound = max(abs(A) + RESIDUAL_MARGIN_SE * math.sqrt(var * vA) for _, _, _, A, vA in kept)

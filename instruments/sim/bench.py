@@ -208,13 +208,16 @@ class SimBench:
 
     def true_settled_C_F(self, channel: int, bias_V: float, branch: str = "rising",
                          freq_Hz: float = 1e3, ac_level_Vrms: float | None = None,
-                         temp_C: float = 25.0) -> float:
-        """The truth: noise-free, settled Cp of the part on `channel` (see physics.py)."""
+                         temp_C: float = 25.0, turn_V: float | None = None,
+                         function: str = "CPD") -> float:
+        """The truth: noise-free, settled C of the part on `channel` (see physics.py), Cp for
+        function CPD and Cs for CSD/CSRS; turn_V: where a falling branch turned (None: from
+        far enough out)."""
         self._check_channel(channel)
         with self.fixture.lock:
             return self.fixture.part(channel).true_settled_C_F(
                 bias_V, branch=branch, freq_Hz=freq_Hz, ac_level_Vrms=ac_level_Vrms,
-                temp_C=temp_C)
+                temp_C=temp_C, turn_V=turn_V, function=function)
 
     def set_temperature(self, temp_C: float) -> None:
         """Chamber temperature at the fixture, degC (the parts and the thermometer follow)."""

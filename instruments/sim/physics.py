@@ -246,8 +246,11 @@ class SimulatedPart:
     def true_settled_C_F(self, bias_V: float, branch: str = "rising",
                          freq_Hz: float | None = 1e3, ac_level_Vrms: float | None = None,
                          temp_C: float = 25.0, source_R_ohm: float = 100.0,
-                         turn_V: float | None = None) -> float:
-        """Noise-free Cp after the step's relaxation has settled, at the part's present age.
+                         turn_V: float | None = None, function: str = "CPD") -> float:
+        """Noise-free C after the step's relaxation has settled, at the part's present age.
+
+        function: the meter function the truth should match: "CPD" gives Cp, "CSD" and "CSRS"
+        give Cs = Cp*(1 + D^2) (handbook relation), so a comparison is always like with like.
 
         branch names the direction of |V|: "rising" = outgoing leg from rest at 0 V (Miller's
         rising branch for positive bias), "falling" = returning leg after a turn at turn_V
@@ -259,8 +262,11 @@ class SimulatedPart:
         x = self.branch_state_V(bias_V, branch, turn_V)
         f = freq_Hz or self.std_freq_Hz
         osc = self.std_level_Vrms if ac_level_Vrms is None else ac_level_Vrms
+        if function.upper() not in ("CPD", "CSD", "CSRS"):
+            raise ValueError(f"function must be CPD, CSD or CSRS, got {function!r}")
         with self._lock:
-            return self._reading(x, f, osc, temp_C, source_R_ohm, 0.0, 0.0).Cp_F
+            m = self._reading(x, f, osc, temp_C, source_R_ohm, 0.0, 0.0)
+        return m.Cs_F if function.upper().startswith("CS") else m.Cp_F
 
     def branch_state_V(self, bias_V: float, branch: str = "rising",
                        turn_V: float | None = None) -> float:

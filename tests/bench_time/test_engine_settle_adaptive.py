@@ -5,6 +5,7 @@ import math
 
 import pytest
 
+from benchkit.adaptive import MIN_PASS_GAIN, STOP_STALLED
 from benchkit.errors import UserError
 from benchkit.plan import parse_plan
 from benchkit.runlog import FLAGS
@@ -88,13 +89,17 @@ def test_adaptive_run_records_why_it_stopped(adaptive_run):
     res, rows, meta, ok = adaptive_run
     assert res.status == "complete" and ok and res.n_points == len(rows) == res.n_planned
     ad = meta["samples"][0]["adaptive"]
-    assert ad["stop_reason"] in ("target met", "point budget reached")
+    assert ad["stop_reason"] in ("target met", "point budget reached", STOP_STALLED)
     assert ad["n_points"] == len(rows) <= ADAPTIVE["max_points"]
     passes = [e for e in meta["events"] if e["event"] == "adaptive_pass"]
     assert passes[-1]["stop_reason"] == ad["stop_reason"] and passes[-1]["points_V"] == []
     assert ad["passes"] == max(int(r["repeat"]) for r in rows) >= 2
     if ad["stop_reason"] == "target met":
         assert all(s["band_pct_of_C0"] <= 0.5 for s in ad["status"].values())
+    if ad["stop_reason"] == STOP_STALLED:  # the last pass narrowed the worst band too little
+        def worst(e):
+            return max(s["band_pct_of_C0"] for s in e["status"].values())
+        assert worst(passes[-1]) > (1 - MIN_PASS_GAIN) * worst(passes[-2]) > 0.5 * (1 - MIN_PASS_GAIN)
 
 
 def test_adaptive_passes_are_monotonic_loops_that_turn_at_the_top(adaptive_run):

@@ -427,3 +427,15 @@ def test_lot_samples_have_their_own_spread_within_tolerance():
                        part.true_settled_C_F(0.0, freq_Hz=None))
     assert len(set(np.round(c0, 15))) == len(lot)
     assert np.ptp(c_rated) > 0.005  # the shape spreads too, not only the scale
+
+
+def test_truth_matches_the_meter_function_it_is_compared_with():
+    # handbook relation: Cs = Cp*(1 + D^2); the truth for a Cs-D reading is the series value
+    part = SimulatedPart(PARTS["BD-1001"], VirtualClock(), np.random.default_rng(0))
+    cp = part.true_settled_C_F(0.0, function="CPD")
+    cs = part.true_settled_C_F(0.0, function="CSD")
+    d = part.reading(1e3, 1.0).D  # at rest at 0 V the settled reading is the truth
+    assert cs == pytest.approx(cp * (1 + d * d), rel=1e-9)
+    assert cs > cp
+    with pytest.raises(ValueError, match="function must be"):
+        part.true_settled_C_F(0.0, function="ZTD")

@@ -51,7 +51,8 @@ def fitted(tmp_path_factory):
                 V = np.linspace(lo, hi, 101)
                 truth = np.array([part.true_settled_C_F(
                     v, branch, freq_Hz=float(row["freq_Hz"]), ac_level_Vrms=float(row["ac_level_set_Vrms"]),
-                    turn_V=top_V if branch == "falling" else None) for v in V])
+                    turn_V=top_V if branch == "falling" else None, function=row["function"])
+                    for v in V])
                 out.append((sid, branch, curve, V, truth))
     return out
 
