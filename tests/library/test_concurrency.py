@@ -1,4 +1,9 @@
-"""Several benches writing one library file at once, and merging libraries without duplicates."""
+"""Several benches writing one library file at once, and merging libraries without duplicates.
+
+The library relies on SQLite's write-ahead log and its busy timeout for concurrent writers
+(SQLite documentation: WAL mode, BEGIN IMMEDIATE); the checks are that nothing is lost,
+duplicated or corrupted (PRAGMA integrity_check), whatever the interleaving.
+"""
 
 from __future__ import annotations
 

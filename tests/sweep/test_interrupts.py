@@ -1,7 +1,7 @@
 """Ctrl-C, SIGTERM and kill -9 of a `benchkit measure` process mid-sweep, then --resume.
 
-The bias supply must end at 0 V with its output off, and the run directory must hold every
-completed point exactly once. Real-time waits here only poll for progress; nothing asserts
+The bias supply must end at 0 V with its output off (common practice: a fixture is never
+left live), and the run directory must hold every completed point exactly once. Real-time waits here only poll for progress; nothing asserts
 how long anything took.
 """
 

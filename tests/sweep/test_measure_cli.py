@@ -1,4 +1,8 @@
-"""`benchkit measure` refuses bad input with one clear line and exit 2, before any output."""
+"""`benchkit measure` refuses bad input with one clear line and exit 2, before any output.
+
+Refusing a plan above the part's rated voltage before the supply is switched on, and
+cautioning the operator before a real bench is biased, are common practice for bench safety.
+"""
 
 import socket
 import threading

@@ -1,4 +1,5 @@
-"""Progress: a bar with ETA on a terminal, plain lines otherwise."""
+"""Progress: a bar with ETA on a terminal, plain lines otherwise (common practice for CLIs:
+no control characters when the output is a file or a pipe)."""
 
 import io
 
