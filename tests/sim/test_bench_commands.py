@@ -7,23 +7,6 @@ SCPI-1999 roots); SCPI-1999 vol. 2 ch. 21 for the error codes; IEEE 488.2-1992 f
 from __future__ import annotations
 
 import pytest
-import pyvisa
-
-from instruments.clock import VirtualClock
-from instruments.sim import SimBench
-
-
-@pytest.fixture(scope="module")
-def rm():
-    manager = pyvisa.ResourceManager("@py")
-    yield manager
-    manager.close()
-
-
-@pytest.fixture(scope="module")
-def bench():
-    with SimBench.demo(clock=VirtualClock()) as b:
-        yield b
 
 
 @pytest.fixture(scope="module")

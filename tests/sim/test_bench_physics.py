@@ -11,18 +11,10 @@ import math
 import tomllib
 
 import pytest
-import pyvisa
 
 from instruments.clock import VirtualClock
 from instruments.sim import SimBench
 from instruments.sim.fixture import Wiring
-
-
-@pytest.fixture(scope="module")
-def rm():
-    manager = pyvisa.ResourceManager("@py")
-    yield manager
-    manager.close()
 
 
 @pytest.fixture

@@ -18,13 +18,6 @@ from instruments.clock import VirtualClock
 from instruments.sim import Fault, SimBench
 
 
-@pytest.fixture(scope="module")
-def rm():
-    manager = pyvisa.ResourceManager("@py")
-    yield manager
-    manager.close()
-
-
 @pytest.fixture
 def bench():
     with SimBench.demo(clock=VirtualClock()) as b:

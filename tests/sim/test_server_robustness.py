@@ -11,7 +11,6 @@ import socket
 import threading
 
 import pytest
-import pyvisa
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 from instruments.clock import VirtualClock
@@ -20,19 +19,6 @@ from instruments.sim.bench import ROLE_ORDER
 
 MODELS = {"meter": "SIM-LCR", "supply": "SIM-DCS", "scanner": "SIM-MUX",
           "thermometer": "SIM-THERMO"}
-
-
-@pytest.fixture(scope="module")
-def rm():
-    manager = pyvisa.ResourceManager("@py")
-    yield manager
-    manager.close()
-
-
-@pytest.fixture(scope="module")
-def bench():
-    with SimBench.demo(clock=VirtualClock()) as b:
-        yield b
 
 
 @pytest.fixture(autouse=True)
