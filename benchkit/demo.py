@@ -9,6 +9,7 @@ together on a virtual clock, so an afternoon of bench time passes in seconds.
 from __future__ import annotations
 
 import argparse
+import json
 import shutil
 import sys
 from pathlib import Path
@@ -78,8 +79,17 @@ def main(argv: list[str] | None = None) -> int:
     print("\n== outputs")
     for name, path in outputs.items():
         print(f"  {name:12s} {path}")
-    print("\nThe simulated bench ended every sweep at 0 V with its output off.")
-    return 0
+    print()
+    safe = True
+    for key in ("fixture_run", "lot_run"):
+        meta = json.loads((outputs[key] / "run.json").read_text(encoding="utf-8"))
+        state = meta.get("sim_final_supply_state") or {}
+        ok = state.get("set_V") == 0.0 and state.get("output_on") is False
+        safe &= ok
+        print(f"{key}: {meta['status']}; bias supply at the end: "
+              f"{state.get('set_V')} V set, output {'on' if state.get('output_on') else 'off'}"
+              + ("" if ok else "  <-- NOT SAFE: check the fixture"))
+    return 0 if safe else 1
 
 
 if __name__ == "__main__":
