@@ -54,6 +54,7 @@ def run_demo(out: Path, quiet_sweeps: bool = True) -> dict[str, Path]:
     _step("file the parts and the run in the in-house library",
           ["library", *lib, "add-parts", str(DATA / "parts.toml")])
     _step("", ["library", *lib, "add", str(o["fixture_run"]), "--all-parts"])
+    _step("", ["library", *lib, "add", str(DATA / "claims" / "BD-1004-typical.csv")])
     _step("which parts keep the most capacitance at 5 V?",
           ["library", *lib, "query", "--bias", "5"])
     _step("export BD-1001 as a SPICE subcircuit and a table",

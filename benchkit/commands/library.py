@@ -48,8 +48,9 @@ def register(subparsers) -> None:
     sp.add_argument("parts_file", metavar="PARTS.toml")
     sp.set_defaults(func=run, action=_add_parts)
 
-    sp = add("add", "add a run directory (fitted, model auto) or a curve document to the library")
-    sp.add_argument("source", metavar="RUN_DIR|CURVE.json")
+    sp = add("add", "add a run directory (fitted, model auto), a curve document or a supplier's "
+                    "claim (CLAIM.csv, filed as origin 'supplier claim') to the library")
+    sp.add_argument("source", metavar="RUN_DIR|CURVE.json|CLAIM.csv")
     sp.add_argument("--part", metavar="ID", help="part id (default: the run's only part, or the curve's own)")
     sp.add_argument("--all-parts", action="store_true", help="a run directory: add the curves of every part in it")
     sp.add_argument("--model", default="auto", help="model to fit a run with (default auto: chosen by the fit)")
@@ -175,13 +176,18 @@ def _add(args) -> int:
                           f"{fc.branch}, model {fc.curve.model}, {fc.n_points} points")
                 print(f"{lib.where}: {s.added} curves of part {s.part_id} added from {src}")
         return 0
-    from benchkit.library.fitsbridge import curve_from_json
+    if src.suffix.lower() == ".csv":  # a supplier's claimed curve: filed as origin "supplier claim"
+        from benchkit.verify.claims import load_claim
 
-    try:
-        text = src.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise UserError(f"{src}: unreadable ({exc})") from None
-    curve = curve_from_json(text, str(src))
+        curve = load_claim(src).to_curve()
+    else:
+        from benchkit.library.fitsbridge import curve_from_json
+
+        try:
+            text = src.read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise UserError(f"{src}: unreadable ({exc})") from None
+        curve = curve_from_json(text, str(src))
     with _open(args, create=True) as lib:
         cid, added = lib.add_curve(curve, args.part, esr_ohm=args.esr, where=str(src))
         print(f"curve {cid} {'added' if added else 'already present'} in {lib.where}")
