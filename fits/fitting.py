@@ -353,16 +353,11 @@ def _fit_variant(variant: Variant, data: SweepData) -> VariantFit:
             raise _CannotFit(f"{variant.label}: the fit failed ({exc})") from None
         if not _converged(result):
             raise _CannotFit(f"{variant.label}: did not converge ({result.message})")
-        newly = [(n, _at_bound(result.params[n])) for n in free]
-        newly = [(n, b) for n, b in newly if b is not None]
+        newly = _hold_at_bounds(result, params, free, held)
         if not newly:
             break
-        for n, p in result.params.items():
-            params[n].set(value=p.value)
-        for n, b in newly:
-            params[n].set(value=b, vary=False)
+        for n in newly:
             free.remove(n)
-            held.append(n)
         if not free:
             raise _CannotFit(f"{variant.label}: every parameter ran onto a bound")
     values = {n: float(v) * (Cs if is_capacitance_param(n) else 1.0)
@@ -373,6 +368,21 @@ def _fit_variant(variant: Variant, data: SweepData) -> VariantFit:
                  data, spec.C(data.bias_V, **values))
     vf.lmfit_result = result
     return vf
+
+
+def _hold_at_bounds(result, params, free, held: list[str]) -> list[str]:
+    """Fix at its bound every free parameter the fit ran onto, start the next fit from this
+    one's values, and return the names newly held (appended to `held`): a parameter at a
+    bound has no honest standard error, so it is held and reported, not left to vary."""
+    newly = [(n, _at_bound(result.params[n])) for n in free]
+    newly = [(n, b) for n, b in newly if b is not None]
+    if newly:
+        for n, p in result.params.items():
+            params[n].set(value=p.value)
+        for n, b in newly:
+            params[n].set(value=b, vary=False)
+            held.append(n)
+    return [n for n, _ in newly]
 
 
 def _converged(result) -> bool:
@@ -478,15 +488,8 @@ def _fit_tanh_shared(rising: SweepData, falling: SweepData) -> dict[str, Variant
                                                             **_FIT_KWS)
         if not _converged(result):
             raise _CannotFit(f"{label}: did not converge ({result.message})")
-        newly = [(n, _at_bound(result.params[n])) for n in names if result.params[n].vary]
-        newly = [(n, b) for n, b in newly if b is not None]
-        if not newly:
+        if not _hold_at_bounds(result, params, [n for n in names if result.params[n].vary], held):
             break
-        for n, p in result.params.items():
-            params[n].set(value=p.value)
-        for n, b in newly:
-            params[n].set(value=b, vary=False)
-            held.append(n)
         if len(held) == len(names):
             raise _CannotFit(f"{label}: every parameter ran onto a bound")
     vals = {n: v * (Cs if is_capacitance_param(n) else 1.0)
