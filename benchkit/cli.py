@@ -39,13 +39,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"benchkit {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name in COMMANDS:
-        try:
-            module = importlib.import_module(f"benchkit.commands.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name == f"benchkit.commands.{name}":
-                continue
-            raise
-        module.register(sub)
+        importlib.import_module(f"benchkit.commands.{name}").register(sub)
     return parser
 
 

@@ -1,7 +1,7 @@
 """One module per sub-command; each exposes register(subparsers) and sets `func` on its parser.
 
-The CLI imports the modules listed in COMMANDS; a module whose file does not exist yet is
-skipped, so sub-commands can land one at a time.
+The CLI imports the modules listed in COMMANDS, in this order (the order of `benchkit --help`).
+Heavy imports (numpy, scipy, lmfit, pyvisa) belong inside `run`, so the CLI starts quickly.
 """
 
 COMMANDS = ("sim", "measure", "fit", "library", "export", "verify", "budget", "lot")
