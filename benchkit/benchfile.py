@@ -1,7 +1,7 @@
 """The bench file: which instrument answers at which address, and which sample sits where.
 
-Read by `benchkit measure --bench`, written by `benchkit sim --bench-file` (CONTRACTS.md
-section 4). Opening the bench checks every instrument answers (*IDN?) before any voltage is
+Read by `benchkit measure --bench`, written by `benchkit sim --bench-file` (DEVELOPERS.md,
+"File formats"). Opening the bench checks every instrument answers (*IDN?) before any voltage is
 applied; an address that is malformed, refused or silent is bad input: one line, exit 2.
 """
 

@@ -1,7 +1,7 @@
 """A run directory read for fitting: the points of each sample, checked, weighted, ready for fits.
 
 One reader for `benchkit fit`, the curve library and verification, so all three fit the very
-same points of a run (CONTRACTS.md section 5). x = bias_set_V, y = C_F, sigma = C_std_F /
+same points of a run (DEVELOPERS.md, "File formats": run directory). x = bias_set_V, y = C_F, sigma = C_std_F /
 sqrt(n_readings) (the standard deviation of the mean of the point's readings, JCGM 100:2008
 4.2.3) when every point has it. A partial last line of an aborted run is dropped (it is the
 point in progress when the run stopped, benchkit.runlog.read_points); points flagged with a

@@ -4,7 +4,7 @@ Every point is flushed and fsync'ed before the next bias step, so a power cut or
 loses at most the point in progress (a trailing partial line, dropped on resume). run.json is
 replaced atomically at the start (status running), on every status change and at the end
 (complete with the sha256 of points.csv, or aborted with the reason). The columns are the
-interface with the fitting and verification code (CONTRACTS.md section 5).
+interface with the fitting and verification code (DEVELOPERS.md, "File formats": run directory).
 """
 
 from __future__ import annotations

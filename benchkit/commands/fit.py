@@ -1,6 +1,6 @@
 """`benchkit fit RUN_DIR`: fit a C(V) model to each sample of a run and write curve documents.
 
-Input: RUN_DIR/run.json and RUN_DIR/points.csv (CONTRACTS.md section 5, read with
+Input: RUN_DIR/run.json and RUN_DIR/points.csv (DEVELOPERS.md, "File formats": run directory, read with
 benchkit.rundata, as the library and verification read them). x = bias_set_V, y = C_F; weights
 1/sigma with sigma = C_std_F/sqrt(n_readings) when every point of the sample has it, otherwise
 fits weights from repeated biases. Points flagged overload, current_limit or bias_readback

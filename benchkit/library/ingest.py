@@ -3,7 +3,7 @@
 The run's identity is the sha256 of its points.csv: the same data added twice (by one bench
 or two) is stored once. Each sample of the asked part is fitted as `benchkit fit` fits it:
 both sweep branches together (fits.fit_branches, model "auto" unless told), weighted by
-C_std_F/sqrt(n_readings) (CONTRACTS.md section 5), points flagged overload, current_limit or
+C_std_F/sqrt(n_readings) (DEVELOPERS.md, "File formats": run directory), points flagged overload, current_limit or
 bias_readback left out: the run is read by benchkit.rundata, the reader `benchkit fit` uses, so
 a run added directly and the curve file `benchkit fit` wrote from it are the same curve (same
 content hash, stored once).

@@ -23,7 +23,7 @@ def check_part_id(pid: Any, where: Any = None) -> str:
 
 @dataclass(frozen=True)
 class PartRecord:
-    """Catalogue fields of one in-house part number (CONTRACTS.md section 1, `case` as the EIA inch code)."""
+    """Catalogue fields of one in-house part number (DEVELOPERS.md, "File formats": parts file, `case` as the EIA inch code)."""
 
     part_id: str
     description: str = ""

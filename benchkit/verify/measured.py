@@ -83,7 +83,7 @@ class Skipped:
 
 
 def _fits():
-    """fit_sweep and Curve as CONTRACTS.md section 7 names them (from fits)."""
+    """fit_sweep and Curve as DEVELOPERS.md, "File formats": curve document names them (from fits)."""
     import fits
     from fits import FitsError
 

@@ -145,7 +145,7 @@ class SimParams:
 
 @dataclass(frozen=True)
 class PartSpec:
-    """One catalogue entry (section 1 of the interface contract)."""
+    """One catalogue entry of the parts file (DEVELOPERS.md, "File formats")."""
 
     id: str
     description: str

@@ -34,8 +34,7 @@ CORPUS = HERE / "corpus"
 REUSED_PARTS = HERE.parent / "sim" / "malformed_parts"
 REUSED_CLAIMS = HERE.parent / "verify" / "malformed_claims"
 PARSERS = ("plan", "bench", "curve", "points", "run_json", "library", "parts", "claims")
-# Open bugs in code other helpers own (see the report). Strict: a fix shows as XPASS, so the
-# mark gets removed. fits/ raises, benchkit/library/fitsbridge.py words it for the command line.
+# Known open parser bugs, as strict xfails: a fix shows as XPASS, so the mark gets removed. fits/ raises, benchkit/library/fitsbridge.py words it for the command line.
 FITS_OPEN = {
 }
 LIBRARY_OPEN = {

@@ -1,5 +1,5 @@
-"""Helpers of the fits tests: synthetic sweeps and run directories in the CONTRACTS.md
-section-5 format, written here independently of benchkit's own run writer.
+"""Helpers of the fits tests: synthetic sweeps and run directories in the format of
+DEVELOPERS.md ("File formats"), written here independently of benchkit's own run writer.
 
 All numbers are invented for the tests (Brackwater Dynamics demo part BD-1001).
 """

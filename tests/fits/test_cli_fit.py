@@ -1,4 +1,4 @@
-"""`benchkit fit RUN_DIR`: run directories in the CONTRACTS.md section-5 format written by the
+"""`benchkit fit RUN_DIR`: run directories in the run-directory format of DEVELOPERS.md written by the
 test, curve documents out; bad input -> one line on stderr, exit 2, no file written."""
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""The Curve object and its JSON document (CONTRACTS.md section 7): round trip, atomic
+"""The Curve object and its JSON document (DEVELOPERS.md, "File formats": curve document): round trip, atomic
 save, range guard, and one clear error naming the field for each kind of bad document."""
 
 from __future__ import annotations

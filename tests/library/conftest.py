@@ -108,7 +108,7 @@ def lib(tmp_path, parts):
 
 @pytest.fixture
 def parts_toml(tmp_path) -> Path:
-    """A parts file in the CONTRACTS.md section 1 layout (no [part.sim]: catalogue only)."""
+    """A parts file in the parts-file layout of DEVELOPERS.md (no [part.sim]: catalogue only)."""
     lines = ['company = "Brackwater Dynamics"']
     for p in PARTS:
         lines.append("[[part]]")

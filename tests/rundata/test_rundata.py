@@ -1,6 +1,6 @@
 """benchkit.rundata: the one reader of run directories for `benchkit fit`, the library and verify.
 
-Run directories are written here with the csv module in the CONTRACTS.md section-5 layout,
+Run directories are written here with the csv module in the run-directory layout of DEVELOPERS.md,
 independently of benchkit's own run writer. All parts and numbers are invented for the tests
 (Brackwater Dynamics demo part BD-1001).
 """
@@ -19,7 +19,7 @@ import pytest
 from benchkit import rundata, runlog
 from benchkit.errors import UserError
 
-# CONTRACTS.md section 5, written out here rather than taken from benchkit
+# DEVELOPERS.md, "File formats": run directory, written out here rather than taken from benchkit
 COLUMNS = (
     "run_id,sample_id,part_id,channel,step_index,branch,repeat,bias_set_V,bias_meas_V,"
     "bias_current_A,function,freq_Hz,ac_level_set_Vrms,ac_level_dut_Vrms,C_F,C_std_F,D,Rs_ohm,"

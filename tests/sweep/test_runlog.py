@@ -12,7 +12,7 @@ from benchkit.errors import UserError
 from benchkit.runlog import COLUMNS, FLAGS, RunLog, join_flags, read_points, read_run
 from benchkit.safety import Interrupted, SignalGuard
 
-# CONTRACTS.md section 5 (the interface the fitting and verification code reads)
+# DEVELOPERS.md, "File formats": run directory (the interface the fitting and verification code reads)
 CONTRACT_COLUMNS = (
     "run_id,sample_id,part_id,channel,step_index,branch,repeat,bias_set_V,bias_meas_V,"
     "bias_current_A,function,freq_Hz,ac_level_set_Vrms,ac_level_dut_Vrms,C_F,C_std_F,D,Rs_ohm,"

@@ -2,7 +2,7 @@
 
 `lot_run`: the demo lot (six samples of BD-1004) swept by the real sweep engine on the
 simulated bench with a virtual clock, once per session. `write_run` writes a small run
-directory in the CONTRACTS.md section-5 format from a formula, for the cases the simulated
+directory in the run-directory format of DEVELOPERS.md from a formula, for the cases the simulated
 lot does not cover (other parts in the same run, missing fields).
 """
 
@@ -91,7 +91,7 @@ def claim_text(part_id, bias_V, C_F, tolerance="+-15%", freq_Hz=1000, ac_level_V
 def write_run(run_dir: Path, samples, bias_V, *, noise_frac=1e-4, n_readings=4, seed=0,
               freq_Hz=1000.0, ac_level_Vrms=1.0, temp_C=25.0, run_id="run-test-0001",
               extra_sample_fields=None) -> Path:
-    """A run directory (CONTRACTS.md section 5) from formulas: samples = [(sample_id, part_id,
+    """A run directory (DEVELOPERS.md, "File formats": run directory) from formulas: samples = [(sample_id, part_id,
     channel, part_dict, C_of_V)]. Each point is the mean of n_readings readings with Gaussian
     relative noise noise_frac."""
     rng = np.random.default_rng(seed)

@@ -39,7 +39,7 @@ def write_claim(tmp_path, tools, name, C_F, **kw):
 
 
 def curve_docs(tmp_path, lot_samples):
-    """Each fitted sample saved as a curve document (CONTRACTS.md section 7)."""
+    """Each fitted sample saved as a curve document (DEVELOPERS.md, "File formats": curve document)."""
     samples, _ = lot_samples
     paths = []
     for s in samples:
