@@ -6,19 +6,12 @@ one line, exit 2, nothing started or written (benchkit/errors.py).
 
 from __future__ import annotations
 
-import signal
-import subprocess
-import sys
-import time
-from pathlib import Path
-
 import pytest
 
 from benchkit.cli import main
 
 from fault_kit import flags_of, planned_keys, read_meta, read_rows, row_keys, write_plan
-
-REPO = Path(__file__).resolve().parents[2]
+from sweep_helpers import start_benchkit, stop_benchkit, wait_for  # beside fault_kit on sys.path
 
 
 @pytest.mark.parametrize("spec,words", [
@@ -69,15 +62,9 @@ def test_several_faults_in_one_run(tmp_path, capsys):
 def test_sim_process_with_a_fault_and_measure_over_its_bench_file(tmp_path, capsys):
     """`benchkit sim --fault drop:after=26` in its own process, measured over the bench file."""
     bench_file = tmp_path / "bench.toml"
-    proc = subprocess.Popen([sys.executable, "-m", "benchkit", "sim", "--fault", "drop:after=26",
-                             "--bench-file", str(bench_file)], cwd=REPO,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc = start_benchkit("sim", "--fault", "drop:after=26", "--bench-file", str(bench_file))
     try:
-        deadline = time.monotonic() + 60
-        while not bench_file.exists():  # real time, nothing asserted about it
-            assert proc.poll() is None, proc.communicate()[1]
-            assert time.monotonic() < deadline, "benchkit sim wrote no bench file"
-            time.sleep(0.05)
+        wait_for(bench_file.exists, 60, "the bench file of benchkit sim", proc)
         # a real clock here: no dwell and a fast ramp keep the run short
         plan = write_plan(tmp_path / "plan.toml", measure={"dwell_s": 0.0},
                           limits={"max_ramp_V_per_s": 1000.0, "discharge_wait_s": 0.0})
@@ -91,13 +78,8 @@ def test_sim_process_with_a_fault_and_measure_over_its_bench_file(tmp_path, caps
         assert any(e["event"] == "link_recovered" and e["reconnects"] == 1
                    for e in read_meta(out)["events"])
     finally:
-        proc.send_signal(signal.SIGTERM)
-        try:
-            proc.communicate(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.communicate()
-    assert proc.returncode == 0
+        code = stop_benchkit(proc)
+    assert code == 0
 
 
 @pytest.mark.parametrize("kind", ["timeout", "drop", "garble", "error", "current-limit", "overload",

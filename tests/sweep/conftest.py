@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import signal
-import subprocess
 import sys
 from pathlib import Path
 
@@ -11,7 +9,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from sweep_helpers import start_benchkit, wait_for  # noqa: E402
+from sweep_helpers import start_benchkit, stop_benchkit, wait_for  # noqa: E402
 
 
 @pytest.fixture
@@ -23,11 +21,6 @@ def sim_process(tmp_path):
         wait_for(bench_file.exists, 30, "the bench file of benchkit sim", proc)
         yield bench_file
     finally:
-        proc.send_signal(signal.SIGTERM)
-        try:
-            proc.communicate(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.communicate()
+        stop_benchkit(proc)
 
 

@@ -68,6 +68,17 @@ def start_benchkit(*args: str, **kw) -> subprocess.Popen:
                             stderr=subprocess.PIPE, text=True, **kw)
 
 
+def stop_benchkit(proc: subprocess.Popen, timeout_s: float = 10.0) -> int:
+    """SIGTERM, as an operator's kill would send; kill it if it does not end; its exit code."""
+    proc.send_signal(signal.SIGTERM)
+    try:
+        proc.communicate(timeout=timeout_s)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.communicate()
+    return proc.returncode
+
+
 def wait_for(predicate, timeout_s: float, what: str, proc: subprocess.Popen | None = None):
     """Poll until predicate() is truthy (real time is fine here: nothing is asserted about it)."""
     deadline = time.monotonic() + timeout_s
