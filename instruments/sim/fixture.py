@@ -27,6 +27,8 @@ import threading
 from dataclasses import dataclass
 from typing import Callable, Mapping, Protocol
 
+from instruments.sim.physics import Measurement, level_across_part_Vrms
+
 REPORT_STEP_V = 1e-3  # bias changes smaller than this are not passed to the part
 MAX_DV_PER_STEP_V = 0.05  # sub-step so that C(V) is re-evaluated at least every 50 mV
 MAX_STEPS_PER_ADVANCE = 20000
@@ -58,18 +60,6 @@ class Wiring:
     source_R_ohm: float = 100.0  # meter source resistance (COMMANDS.md)
     stray_C_F: float = 2e-12  # open fixture
     stray_G_S: float = 1e-10
-
-
-@dataclass(frozen=True)
-class OpenReading:
-    """A meter reading of the open fixture (no channel closed): stray C and conductance."""
-
-    Cs_F: float
-    Cp_F: float
-    D: float
-    Rs_ohm: float
-    Rp_ohm: float
-    ac_dut_Vrms: float
 
 
 class PartTime:
@@ -398,13 +388,14 @@ class BiasFixture:
         slot.V = V
         slot.time.t_s = t_end
 
-    def _open_reading(self, freq_Hz: float, osc_level_Vrms: float) -> OpenReading:
+    def _open_reading(self, freq_Hz: float, osc_level_Vrms: float) -> Measurement:
         """Open fixture: Y = G + jwC; Cs, Rs from the handbook series-parallel relations."""
         w = 2 * math.pi * freq_Hz
         Cp, G = self.wiring.stray_C_F, self.wiring.stray_G_S
         D = G / (w * Cp)
         Cs = Cp * (1 + D * D)
         Rs = D / (w * Cs)
-        Z = 1.0 / complex(G, w * Cp)
-        level = osc_level_Vrms * abs(Z) / abs(self.wiring.source_R_ohm + Z)
-        return OpenReading(Cs_F=Cs, Cp_F=Cp, D=D, Rs_ohm=Rs, Rp_ohm=1.0 / G, ac_dut_Vrms=level)
+        level = level_across_part_Vrms(osc_level_Vrms, 1.0 / complex(G, w * Cp),
+                                       self.wiring.source_R_ohm)
+        return Measurement(Cs_F=Cs, Cp_F=Cp, D=D, Rs_ohm=Rs, Rp_ohm=1.0 / G, ac_dut_Vrms=level,
+                           freq_Hz=freq_Hz, bias_V=0.0, t_s=self._t)
