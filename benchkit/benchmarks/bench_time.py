@@ -10,7 +10,7 @@ the uniform step) and back:
   to come, in percent of C0) and adaptive steps (the plan's [adaptive], ADAPTIVE), 3
   readings per point.
 
-Both are fitted per branch with model "auto" (benchkit.adaptive.fit_branch: fits.fit_sweep
+Both are fitted per branch with model "auto" (benchkit.sweep.adaptive.fit_branch: fits.fit_sweep
 with pooled per-point sigma) and compared with the bench's true settled curve over each fitted
 curve's valid range: the rising branch with SimBench.true_settled_C_F, the falling branch
 with SimBench.true_settled_C_F(turn_V = top), because the sweep turns at its top while
@@ -28,13 +28,14 @@ import time
 from pathlib import Path
 
 import numpy as np
+from benchkit.commands.sim import demo_bench
 
 UNIFORM_STEP_V = 0.5
 UNIFORM_DWELL_S = 5.0
 N_READINGS = 3
 LIMITS = {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 0.0}
 # One adaptive plan for every part. Settle detection by the residual left in the reading
-# (benchkit/settle.py): at most 0.2 % of C0 still to come when a point is read, 40 % of the
+# (benchkit/sweep/settle.py): at most 0.2 % of C0 still to come when a point is read, 40 % of the
 # 0.5 % target, the rest left for the fit; min_dwell_s 1 s for the part to charge through the
 # fixture's feed resistor (several R*C for the largest demo part) before the fit's readings.
 SETTLE = {"max_residual_pct_of_C0": 0.2, "max_tau_s": 20.0, "max_dwell_s": 60.0,
@@ -84,18 +85,17 @@ def _truth(bench, channel: int, bias_V: float, branch: str, cond: dict, top: flo
 
 def run_one(plan_dict: dict, run_dir: Path, seed: int = 0) -> dict:
     """One sweep on a fresh simulated bench; its bench time, points and fit errors."""
-    from benchkit.adaptive import fit_branch
-    from benchkit.plan import parse_plan
-    from benchkit.runlog import read_points, read_run
+    from benchkit.sweep.adaptive import fit_branch
+    from benchkit.sweep.plan import parse_plan
+    from benchkit.sweep.runlog import read_points, read_run
     from benchkit.sweep import measured_point, run_sweep
     from instruments.clock import VirtualClock
-    from instruments.sim import SimBench
 
     plan = parse_plan(plan_dict, plan_dict["name"])
     slot = plan_dict["samples"][0]
     clock = VirtualClock()
     wall0 = time.perf_counter()
-    with SimBench.demo(clock=clock, seed=seed) as bench:
+    with demo_bench(clock=clock, seed=seed) as bench:
         t0 = clock.now()
         result = run_sweep(bench, plan, run_dir, handle_signals=False)
         bench_s = clock.now() - t0
@@ -137,10 +137,10 @@ def run_one(plan_dict: dict, run_dir: Path, seed: int = 0) -> dict:
 
 def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
     """Both sweeps for each demo part (QUICK_PARTS up to QUICK_TOP_V with quick); by part id."""
-    from instruments.sim import parts as catalogue
+    from benchkit.catalogue import DEMO_FIXTURE, DEMO_PARTS, load_fixture, load_parts
 
-    cat = catalogue.load_parts(catalogue.DEMO_PARTS)
-    fixture = catalogue.load_fixture(catalogue.DEMO_FIXTURE, cat)
+    cat = load_parts(DEMO_PARTS)
+    fixture = load_fixture(DEMO_FIXTURE, cat)
     wanted = list(parts) if parts else (list(QUICK_PARTS) if quick else [s.part_id for s in fixture])
     runs = Path(out_dir) / "runs"
     if runs.exists():

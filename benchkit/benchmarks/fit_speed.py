@@ -27,10 +27,11 @@ MODELS = ("tanh", "poly", "landau")
 def sweep(seed: int = 0):
     """(bias_V, C_F, sigma_F) of the benchmark sweep."""
     from instruments.clock import VirtualClock
-    from instruments.sim.parts import DEMO_PARTS, load_parts
+    from benchkit.catalogue import DEMO_PARTS, load_parts
+    from benchkit.commands.sim import simulated_parts
     from instruments.sim.physics import SimulatedPart
 
-    spec = load_parts(DEMO_PARTS)[PART]
+    spec = simulated_parts(load_parts(DEMO_PARTS))[PART]
     part = SimulatedPart(spec, VirtualClock(), np.random.default_rng(seed))
     V = np.linspace(0.0, TOP_V, N_POINTS)
     C = np.array([part.true_settled_C_F(v, "rising", freq_Hz=None) for v in V])

@@ -18,6 +18,7 @@ import time
 from pathlib import Path
 
 from benchkit.benchmarks.bench_time import top_V, uniform_plan
+from benchkit.commands.sim import demo_bench
 
 ENGINE_PART = "BD-1004"  # 25 V: 101 points at 0.5 V steps (the quick run uses 4 V of it)
 QUICK_TOP_V = 4.0
@@ -70,12 +71,11 @@ class _PointClock:
 
 
 def run(out_dir: Path, quick: bool = False, log=print) -> dict:
-    from instruments.sim.parts import DEMO_FIXTURE, DEMO_PARTS, load_fixture, load_parts
+    from benchkit.catalogue import DEMO_FIXTURE, DEMO_PARTS, load_fixture, load_parts
 
-    from benchkit.plan import parse_plan
+    from benchkit.sweep.plan import parse_plan
     from benchkit.sweep import run_sweep
     from instruments.clock import VirtualClock
-    from instruments.sim import SimBench
 
     cat = load_parts(DEMO_PARTS)
     slot = next(s for s in load_fixture(DEMO_FIXTURE, cat) if s.part_id == ENGINE_PART)
@@ -88,7 +88,7 @@ def run(out_dir: Path, quick: bool = False, log=print) -> dict:
         import shutil
 
         shutil.rmtree(run_dir)
-    with SimBench.demo(clock=VirtualClock()) as bench:
+    with demo_bench(clock=VirtualClock()) as bench:
         idn = idn_round_trip_s(bench.resources["meter"], 300 if quick else 2000)
         sink = _PointClock()
         result = run_sweep(bench, parse_plan(plan_dict, "bench-overhead"), run_dir,

@@ -1,10 +1,10 @@
 """`benchkit fit RUN_DIR`: fit a C(V) model to each sample of a run and write curve documents.
 
 Input: RUN_DIR/run.json and RUN_DIR/points.csv (DEVELOPERS.md, "File formats": run directory, read with
-benchkit.rundata, as the library and verification read them). x = bias_set_V, y = C_F; weights
+benchkit.sweep.rundir, as the library and verification read them). x = bias_set_V, y = C_F; weights
 1/sigma with sigma = C_std_F/sqrt(n_readings) when every point of the sample has it, otherwise
 fits weights from repeated biases. Points flagged overload, current_limit or bias_readback
-(benchkit.rundata.LEFT_OUT_FLAGS) are left out; more flags can be excluded with --exclude-flag.
+(benchkit.sweep.rundir.LEFT_OUT_FLAGS) are left out; more flags can be excluded with --exclude-flag.
 
 Output, decided by the number of samples:
 - one sample (or --sample ID): --out is a FILE; the rising branch (the primary curve) goes
@@ -22,7 +22,7 @@ import math
 import re
 from pathlib import Path
 
-from benchkit import runlog
+from benchkit.sweep import runlog
 from benchkit.atomic import write_bytes_atomic, write_text_atomic
 from benchkit.errors import UserError
 
@@ -95,9 +95,9 @@ def run(args) -> int:
                         f"{', '.join(sorted(runlog.FLAGS))})")
     if args.plot and Path(args.plot).suffix.lower() not in plots.FORMATS:
         raise UserError(f"--plot {args.plot}: use a .png or .pdf file name")
-    from benchkit import rundata  # numpy and the fits stack load only when fitting
+    from benchkit.sweep import rundir  # numpy and the fits stack load only when fitting
 
-    run_data = rundata.read_run_dir(run_dir, sample=args.sample, extra_flags=args.exclude_flag)
+    run_data = rundir.read_run_dir(run_dir, sample=args.sample, extra_flags=args.exclude_flag)
     meta, points_path, sha = run_data.meta, run_data.points_path, run_data.points_sha256
     samples = run_data.with_points()
 
@@ -110,7 +110,7 @@ def run(args) -> int:
             outcomes[sid] = fits.fit_branches(
                 s.bias_V, s.C_F, s.branch, s.sigma_F, model=args.model,
                 shared_shape=not args.separate_branches,
-                conditions=rundata.fit_conditions(meta, s.rows), source=source,
+                conditions=rundir.fit_conditions(meta, s.rows), source=source,
                 part_id=s.part_id, sample_id=sid)
         except fits.FitsError as exc:
             raise UserError(f"{points_path}: sample {sid}: {exc}") from None

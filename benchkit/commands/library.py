@@ -44,7 +44,7 @@ def register(subparsers) -> None:
         return sp
 
     sp = add("add-parts", "add or update parts from a parts file (the catalogue fields are stored; "
-                          "[part.sim] physics is checked but not stored)")
+                          "[part.sim] physics is not stored)")
     sp.add_argument("parts_file", metavar="PARTS.toml")
     sp.set_defaults(func=run, action=_add_parts)
 
@@ -130,7 +130,7 @@ def run(args) -> int:
 
 # -- actions ---------------------------------------------------------------------------------
 def _add_parts(args) -> int:
-    from instruments.sim.parts import PartsFileError, load_parts
+    from benchkit.catalogue import PartsFileError, load_parts
 
     try:
         parts = load_parts(args.parts_file)

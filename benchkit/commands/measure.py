@@ -78,27 +78,29 @@ def _make_clock(virtual: bool, speed: float | None):
 
 
 def _make_sim(lot: bool, seed: int, faults: list[str], clock):
-    from instruments.sim import Fault, FaultSpecError, SimBench, SimBenchError
+    from benchkit.commands import sim as sim_command
+    from instruments.sim import Fault, FaultSpecError, SimBenchError
 
     try:
         parsed = [Fault.parse(f) for f in faults]
-        return SimBench.demo(clock=clock, faults=parsed, seed=seed, lot=lot)
+        return sim_command.demo_bench(clock=clock, faults=parsed, seed=seed, lot=lot)
     except (FaultSpecError, SimBenchError) as exc:
         raise UserError(f"--sim: {exc}") from None
 
 
 def run(args) -> int:
     _check_args(args)
-    from benchkit.progress import Progress
+    from benchkit.sweep.progress import Progress
     from benchkit import sweep
 
     progress = Progress(stream=sys.stderr)
     if args.resume is not None:
         return _resume(args, progress)
 
-    from benchkit.plan import load_plan
+    from benchkit.catalogue import load_catalogue
+    from benchkit.sweep.plan import load_plan
 
-    parts = sweep.load_parts_catalogue(args.parts)
+    parts = load_catalogue(args.parts)
     plan = load_plan(args.plan, parts)
     clock = _make_clock(args.virtual_clock, args.clock_speed)
     record = {
@@ -112,7 +114,7 @@ def run(args) -> int:
             result = sweep.run_sweep(bench, plan, args.out, clock, progress, parts=parts,
                                      io_timeout_s=args.io_timeout_s, extra_record=record)
     else:
-        from benchkit.benchfile import load_bench
+        from benchkit.sweep.benchfile import load_bench
 
         bench_file = load_bench(args.bench)
         result = sweep.run_sweep(bench_file, plan, args.out, clock, progress, parts=parts,
@@ -123,9 +125,9 @@ def run(args) -> int:
 
 def _resume(args, progress) -> int:
     from benchkit import sweep
-    from benchkit.benchfile import load_bench
-    from benchkit.plan import load_plan
-    from benchkit.runlog import read_run
+    from benchkit.sweep.benchfile import load_bench
+    from benchkit.sweep.plan import load_plan
+    from benchkit.sweep.runlog import read_run
 
     meta = read_run(args.resume)
     plan = load_plan(args.plan) if args.plan is not None else None

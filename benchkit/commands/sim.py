@@ -2,6 +2,12 @@
 
 Prints one line per instrument (role and VISA resource string) so that the resources can be
 pasted into a bench file, or writes that bench file itself with --bench-file.
+
+This module is also the one bridge from the catalogue to the simulated bench: the bench has
+no catalogue of its own, so `simulated_parts` hands it each part's nominal value, rating,
+class code, reference conditions and raw `[part.sim]` table, and `sim_bench` / `demo_bench`
+build a bench from catalogue parts and fixture slots for the other entry points (measure,
+the demo, the benchmarks, the tests).
 """
 
 from __future__ import annotations
@@ -10,8 +16,12 @@ import signal
 import sys
 import threading
 from pathlib import Path
+from typing import Any, Mapping, Sequence
 
 from benchkit.atomic import write_text_atomic
+from benchkit.catalogue import (
+    DEMO_FIXTURE, DEMO_LOT, DEMO_PARTS, PartsFileError, load_fixture, load_lot, load_parts,
+)
 from benchkit.cli import SAFETY_NOTE
 from benchkit.errors import UserError
 
@@ -49,10 +59,51 @@ def register(subparsers) -> None:
     parser.set_defaults(func=run)
 
 
+def simulated_parts(parts: Mapping[str, Any]) -> dict:
+    """{part id: SimPart} for the parts that carry a `[part.sim]` table.
+
+    A table the simulator cannot use is a PartsFileError naming the parts file and entry."""
+    from benchkit.catalogue.codes import parse_class_code
+    from benchkit.catalogue.conditions import standard_conditions
+    from instruments.sim.simpart import ClassBand, SimPartError, sim_part
+
+    out = {}
+    for pid, spec in parts.items():
+        if spec.sim is None:
+            continue
+        code = parse_class_code(spec.class_code)
+        if code.dielectric_class == 2:
+            band = ClassBand(code.code, 2, code.low_temp_C, code.high_temp_C,
+                             -code.change_minus_pct, code.change_plus_pct)
+        else:
+            band = ClassBand(code.code, 1, code.low_temp_C, code.high_temp_C,
+                             tc_ppm_per_K=code.tc_ppm_per_K, tc_tol_ppm_per_K=code.tc_tol_ppm_per_K)
+        ref = standard_conditions(spec.class_code, spec.nominal_C_F)
+        try:
+            out[pid] = sim_part(pid, spec.nominal_C_F, spec.rated_V, band, ref.freq_Hz,
+                                ref.ac_level_Vrms, spec.sim, spec.where or f"part {pid}")
+        except SimPartError as exc:
+            raise PartsFileError(str(exc)) from None
+    return out
+
+
+def sim_bench(parts: Mapping[str, Any], slots: Sequence[Any], **kwargs):
+    """A SimBench (not started) of catalogue parts on fixture or lot slots."""
+    from instruments.sim.bench import SimBench
+
+    return SimBench(simulated_parts(parts), slots, **kwargs)
+
+
+def demo_bench(lot: bool = False, **kwargs):
+    """The embedded default: the demo parts on the demo fixture, or the demo lot."""
+    parts = load_parts(DEMO_PARTS)
+    slots = load_lot(DEMO_LOT, parts) if lot else load_fixture(DEMO_FIXTURE, parts)
+    return sim_bench(parts, slots, **kwargs)
+
+
 def _build_bench(args):
     """Check every input first, then load the physics (numpy, scipy) and build the bench."""
     from instruments.clock import RealClock, VirtualClock
-    from instruments.sim import parts as catalogue
     from instruments.sim.faults import Fault, FaultSpecError
 
     try:
@@ -62,18 +113,19 @@ def _build_bench(args):
     if not (args.port == 0 or 1 <= args.port <= 65532):
         raise UserError(f"--port {args.port}: use 0 (free ports) or a base port 1 .. 65532")
     try:
-        parts = catalogue.load_parts(args.parts or catalogue.DEMO_PARTS)
+        parts = load_parts(args.parts or DEMO_PARTS)
         if args.lot:
-            slots = catalogue.load_lot(args.fixture or catalogue.DEMO_LOT, parts)
+            slots = load_lot(args.fixture or DEMO_LOT, parts)
         else:
-            slots = catalogue.load_fixture(args.fixture or catalogue.DEMO_FIXTURE, parts)
-    except catalogue.PartsFileError as exc:
+            slots = load_fixture(args.fixture or DEMO_FIXTURE, parts)
+        simulated = simulated_parts(parts)
+    except PartsFileError as exc:
         raise UserError(str(exc)) from None
     from instruments.sim.bench import SimBench, SimBenchError
 
     clock = VirtualClock() if args.virtual_clock else RealClock()
     try:
-        return SimBench(parts, slots, clock=clock, host=args.host, base_port=args.port,
+        return SimBench(simulated, slots, clock=clock, host=args.host, base_port=args.port,
                         faults=faults, seed=args.seed)
     except SimBenchError as exc:
         raise UserError(str(exc)) from None
@@ -121,4 +173,4 @@ def run(args) -> int:
     return 0
 
 
-__all__ = ["register", "run"]
+__all__ = ["demo_bench", "register", "run", "sim_bench", "simulated_parts"]

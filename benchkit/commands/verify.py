@@ -56,7 +56,7 @@ def register(subparsers) -> None:
 
 
 def run(args) -> int:
-    from benchkit.codes import parse_tolerance
+    from benchkit.catalogue.codes import parse_tolerance
     from benchkit.verify import compare, measured
     from benchkit.verify.claims import load_claim
     from benchkit.verify.report import write_report

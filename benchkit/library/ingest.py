@@ -4,7 +4,7 @@ The run's identity is the sha256 of its points.csv: the same data added twice (b
 or two) is stored once. Each sample of the asked part is fitted as `benchkit fit` fits it:
 both sweep branches together (fits.fit_branches, model "auto" unless told), weighted by
 C_std_F/sqrt(n_readings) (DEVELOPERS.md, "File formats": run directory), points flagged overload, current_limit or
-bias_readback left out: the run is read by benchkit.rundata, the reader `benchkit fit` uses, so
+bias_readback left out: the run is read by benchkit.sweep.rundir, the reader `benchkit fit` uses, so
 a run added directly and the curve file `benchkit fit` wrote from it are the same curve (same
 content hash, stored once).
 The series resistance stored with a curve (for the SPICE export) is the median Rs over the
@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from benchkit import rundata, runlog
+from benchkit.sweep import rundir, runlog
 from benchkit.errors import UserError
 from benchkit.library import fitsbridge
 from benchkit.library.store import Library, RunInfo
@@ -86,7 +86,7 @@ def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str 
     if status == "running" and not allow_incomplete:
         raise UserError(f"{run_dir}: run.json says the run is still running (or it crashed); "
                         f"finish or resume it first, or add it anyway with --allow-incomplete")
-    data = rundata.read_run_dir(Path(run_dir), action="added")
+    data = rundir.read_run_dir(Path(run_dir), action="added")
     meta, points_path, sha = data.meta, data.points_path, data.points_sha256
     samples = data.with_points()
     in_run = sorted({s.part_id for s in samples.values() if s.part_id})
@@ -111,7 +111,7 @@ def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str 
         try:
             outcome = fitsbridge.fit_branches(
                 smp.bias_V, smp.C_F, smp.branch, smp.sigma_F, model=model,
-                conditions=rundata.fit_conditions(meta, smp.rows), source=source,
+                conditions=rundir.fit_conditions(meta, smp.rows), source=source,
                 part_id=part_id, sample_id=sample_id)
         except fitsbridge.fits_errors() as exc:
             raise UserError(f"{points_path}: sample {sample_id}: {exc}") from None

@@ -36,7 +36,7 @@ class PartRecord:
 
     @classmethod
     def from_any(cls, obj: Any) -> "PartRecord":
-        """From a PartSpec (instruments.sim.parts), a mapping with `id` or `part_id`, or a PartRecord."""
+        """From a PartSpec (benchkit.catalogue), a mapping with `id` or `part_id`, or a PartRecord."""
         if isinstance(obj, PartRecord):
             return obj
         if isinstance(obj, dict):

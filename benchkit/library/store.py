@@ -21,6 +21,7 @@ from typing import Any, Iterable
 
 import numpy as np
 
+from benchkit.catalogue.codes import REFERENCE_TEMP_C
 from benchkit.errors import UserError
 from benchkit.library import fitsbridge, schema
 from benchkit.library.connection import LibraryConnection
@@ -28,7 +29,6 @@ from benchkit.library.records import CurveRecord, PartRecord, check_part_id
 from benchkit.library.table import branch_code
 
 # Curves without a stated temperature are taken at the reference temperature [standard: IEC 60384-1].
-REFERENCE_TEMP_C = 25.0
 
 _PART_COLUMNS = "part_id, description, nominal_C_F, tolerance, rated_V, class_code, case_code, supplier"
 _CURVE_SELECT = (

@@ -48,7 +48,7 @@ def refer_to_reference_age(C_F: float, age_h: float, k_pct_per_decade: float,
 
 def typical_rate_pct(class_code: str | None) -> float:
     """A typical aging rate for a temperature-characteristic code; 0 for class 1."""
-    from benchkit.codes import parse_class_code
+    from benchkit.catalogue.codes import parse_class_code
 
     if not class_code:
         return TYPICAL_K_PCT["R"]

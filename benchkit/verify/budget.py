@@ -14,7 +14,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from benchkit.codes import Tolerance, parse_class_code
+from benchkit.catalogue.codes import REFERENCE_TEMP_C
+from benchkit.catalogue.codes import Tolerance, parse_class_code
 from benchkit.errors import UserError
 from benchkit.verify import aging
 
@@ -225,7 +226,6 @@ def operating_point(nominal_C_F: float, tolerance: Tolerance, tolerance_text: st
     return b
 
 
-REFERENCE_TEMP_C = 25.0
 TEMP_MATCH_C = 2.0  # a stored curve counts as taken "at" a temperature within +-2 degC (our choice)
 MEASURED_ORIGINS = ("measured", "lot summary")
 
@@ -242,7 +242,7 @@ def from_library(lib, part_id: str, bias_V: float, temp_C: float = 25.0,
     """The budget of a library part: its catalogue entry, its measured curves at 25 degC for the
     DC-bias factor, and measured curves at temp_C (when there are any covering the bias) for
     the temperature factor; otherwise the class code's bound."""
-    from benchkit.codes import parse_tolerance
+    from benchkit.catalogue.codes import parse_tolerance
 
     part = lib.part(part_id)
     for name in ("nominal_C_F", "tolerance", "class_code"):

@@ -32,7 +32,7 @@ from pathlib import Path
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
-from benchkit.codes import Tolerance, parse_tolerance
+from benchkit.catalogue.codes import Tolerance, parse_tolerance
 from benchkit.errors import UserError
 
 FORMAT_NAME = "benchkit-claim"

@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from benchkit.codes import Tolerance
+from benchkit.catalogue.codes import Tolerance
 from benchkit.errors import UserError
 from benchkit.verify import aging
 from benchkit.verify.claims import Claim

@@ -3,8 +3,8 @@ fits API) or from curve documents, with what the uncertainty budget needs of eac
 
 A run directory holds several samples, maybe of several parts; only those of the claimed
 part are used, the others are listed as skipped so the report says what was left out. Runs are
-read by benchkit.rundata, the reader `benchkit fit` and the library use: the same points are
-left out (benchkit.rundata.LEFT_OUT_FLAGS), weighted and checked the same way.
+read by benchkit.sweep.rundir, the reader `benchkit fit` and the library use: the same points are
+left out (benchkit.sweep.rundir.LEFT_OUT_FLAGS), weighted and checked the same way.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from benchkit import rundata
+from benchkit.sweep import rundir
 from benchkit.errors import UserError
 
 BIAS_GROUP_TOL_V = 1e-6
@@ -149,7 +149,7 @@ def _mean(values) -> float | None:
 
 def _from_run(run_dir: Path, part_id: str, branch: str, model: str):
     fits, FitsError = _fits()
-    data = rundata.read_run_dir(run_dir, action="verified")
+    data = rundir.read_run_dir(run_dir, action="verified")
     meta = data.meta
     samples, skipped = [], []
     origin = f"run {run_dir}"
@@ -168,10 +168,10 @@ def _from_run(run_dir: Path, part_id: str, branch: str, model: str):
         pts = Points(use.bias_V, use.C_F, use.C_std_F, use.n_readings)
         smeta = _sample_meta(meta, sid)
         sconds = smeta.get("conditions") or {}
-        fitted = rundata.fit_conditions(meta, use.rows)
+        fitted = rundir.fit_conditions(meta, use.rows)
         conds = {
             "freq_Hz": fitted["freq_Hz"] or sconds.get("freq_Hz"),
-            "ac_level_Vrms": _mean(rundata.column(use.rows, "ac_level_dut_Vrms")),
+            "ac_level_Vrms": _mean(rundir.column(use.rows, "ac_level_dut_Vrms")),
             "ac_level_set_Vrms": fitted["ac_level_Vrms"] or sconds.get("ac_level_Vrms"),
             "temp_C": fitted["temp_C"],
             "age_h": _age_from(smeta, meta.get("conditions")),
@@ -184,7 +184,7 @@ def _from_run(run_dir: Path, part_id: str, branch: str, model: str):
             conds["ac_level_source"] = "level across the part (mean of the points)"
         conds["age_source"] = "run.json" if conds["age_h"] is not None else "not recorded"
         conds["points_dropped"] = dropped
-        conds["temp_change_points"] = sum("temp_change" in rundata.flags_of(r) for r in use.rows)
+        conds["temp_change_points"] = sum("temp_change" in rundir.flags_of(r) for r in use.rows)
         curve_conds = {k: conds[k] for k in ("freq_Hz", "ac_level_Vrms", "temp_C", "function")}
         if conds["age_h"] is not None:
             curve_conds["age_h"] = conds["age_h"]

@@ -1,11 +1,13 @@
 """The simulated bench: an LCR meter, a DC bias supply, a scanner and a thermometer over TCP.
 
     from instruments.sim import SimBench, Fault
-    with SimBench.demo(clock=VirtualClock()) as bench:
+    with SimBench(parts, slots, clock=VirtualClock()) as bench:   # parts: {id: SimPart}
         bench.resources["meter"]   # "TCPIP0::127.0.0.1::PORT::SOCKET"
 
-The names are loaded on first use, so that `instruments.sim.faults` or `.parts` can be
-imported without numpy and scipy (a CLI rejects bad input before loading the physics).
+The bench has no catalogue of its own: whoever starts it hands it the parts it simulates
+(instruments.sim.simpart.SimPart). The names are loaded on first use, so that
+`instruments.sim.faults` or `.simpart` can be imported without numpy and scipy (a CLI rejects
+bad input before loading the physics).
 """
 
 from __future__ import annotations
@@ -15,6 +17,8 @@ import importlib
 _EXPORTS = {
     "SimBench": "instruments.sim.bench",
     "SimBenchError": "instruments.sim.bench",
+    "SimPart": "instruments.sim.simpart",
+    "SimPartError": "instruments.sim.simpart",
     "Fault": "instruments.sim.faults",
     "FaultSpecError": "instruments.sim.faults",
 }

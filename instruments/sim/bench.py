@@ -38,8 +38,9 @@ def _toml_str(text: str) -> str:
 class SimBench:
     """Meter, supply, scanner and thermometer over one bias fixture, served on 127.0.0.1.
 
-    parts: {part_id: PartSpec} (instruments.sim.parts.load_parts); fixture: FixtureSlot or
-    LotSample entries (load_fixture / load_lot), one sample per scanner channel.
+    parts: {part_id: SimPart} (instruments.sim.simpart), handed over by whoever starts the
+    bench; fixture: slots with channel, sample_id, part_id (and for a lot's samples C_scale,
+    field_scale, hours_since_heat_h), one sample per scanner channel.
     base_port N: meter N, supply N+1, scanner N+2, thermometer N+3; 0 = a free port each.
     Faults: see instruments.sim.faults; those given here are armed when the bench starts.
 
@@ -103,19 +104,6 @@ class SimBench:
         self._servers: dict[str, InstrumentServer] = {}
 
     # ------------------------------------------------------------ construction helpers
-
-    @classmethod
-    def demo(cls, clock=None, faults: Iterable[Fault] = (), seed: int = 0, lot: bool = False,
-             **kwargs) -> "SimBench":
-        """The embedded default: the demo parts on the demo fixture, or the demo lot."""
-        from instruments.sim import parts as catalogue
-
-        parts = catalogue.load_parts(catalogue.DEMO_PARTS)
-        if lot:
-            slots = catalogue.load_lot(catalogue.DEMO_LOT, parts)
-        else:
-            slots = catalogue.load_fixture(catalogue.DEMO_FIXTURE, parts)
-        return cls(parts, slots, clock=clock, faults=faults, seed=seed, **kwargs)
 
     # ------------------------------------------------------------ life cycle
 

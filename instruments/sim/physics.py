@@ -74,9 +74,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
-from instruments.sim.parts import (
-    REFERENCE_TEMP_C, LotSample, PartSpec, SimParams, standard_conditions,
-)
+from instruments.sim.simpart import REFERENCE_TEMP_C, SimParams, SimPart
 
 AGING_T1_H = 1.0          # start of the logarithmic aging law, hours after the heat
 TOLERANCE_AGE_H = 1000.0  # tolerances refer to 1000 h since the last heat [standard: EIA-198-1]
@@ -157,13 +155,12 @@ def _reading_from_Cs_D(Cs, D, freq_Hz, ac_dut, bias_V, t_s) -> Measurement:
 class SimulatedPart:
     """One sample on the fixture: keeps its own bias history and answers meter readings.
 
-    `sample` (a LotSample, or anything with C_scale / field_scale / hours_since_heat_h /
-    sample_id; a FixtureSlot gives the defaults) sets the part-to-part spread.
+    `sample` (anything with C_scale / field_scale / hours_since_heat_h / sample_id, such as
+    a lot's sample; a plain fixture slot gives the defaults) sets the part-to-part spread.
     Thread-safe: the supply and meter servers may call it from different threads.
     """
 
-    def __init__(self, spec: PartSpec, clock, rng: np.random.Generator,
-                 sample: LotSample | None = None):
+    def __init__(self, spec: SimPart, clock, rng: np.random.Generator, sample=None):
         if spec.sim is None:
             raise ValueError(f"part {spec.id}: no [part.sim] table, so it cannot be simulated")
         self.spec = spec
@@ -178,7 +175,7 @@ class SimulatedPart:
         self.C_ref_F = spec.nominal_C_F * self.C_scale
         self.char_field_V_per_m = self.sim.char_field_V_per_m * field_scale
         self.Ec_V = self.sim.coercive_field_V_per_m * self.sim.layer_thickness_m
-        self.std_freq_Hz, self.std_level_Vrms = standard_conditions(spec)
+        self.std_freq_Hz, self.std_level_Vrms = spec.ref_freq_Hz, spec.ref_level_Vrms
         self._tempco = None
         if spec.dielectric_class == 2:
             self._tempco = PchipInterpolator(self.sim.tempco_points_C,

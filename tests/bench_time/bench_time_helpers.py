@@ -12,12 +12,13 @@ import math
 
 import numpy as np
 
-from benchkit.adaptive import MeasuredPoint
+from benchkit.sweep.adaptive import MeasuredPoint
 from instruments.clock import VirtualClock
-from instruments.sim.parts import DEMO_PARTS, load_parts
+from benchkit.catalogue import DEMO_PARTS, load_parts
+from benchkit.commands.sim import simulated_parts
 from instruments.sim.physics import SimulatedPart
 
-PARTS = load_parts(DEMO_PARTS)
+PARTS = simulated_parts(load_parts(DEMO_PARTS))
 READ_S = 0.1  # one meter reading takes this long on the bench clock (the sim meter's time)
 RAMP_V_PER_S = 5.0
 
@@ -115,7 +116,7 @@ def CtrlCAfter(n):
     import os
     import signal
 
-    from benchkit.progress import Progress
+    from benchkit.sweep.progress import Progress
 
     class _CtrlC(Progress):
         def point(self, done, text):

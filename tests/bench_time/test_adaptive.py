@@ -1,4 +1,4 @@
-"""Adaptive bias steps (benchkit/adaptive.py) on the physics of the simulated part.
+"""Adaptive bias steps (benchkit/sweep/adaptive.py) on the physics of the simulated part.
 
 Facts the checks rest on: a class-2 part is hysteretic (Miller-type branches [published:
 S. L. Miller et al., J. Appl. Phys. 68, 6463 (1990)]), so within a branch the bias moves one
@@ -11,10 +11,10 @@ noise-free settled curve (SimulatedPart.true_settled_C_F), not the fit.
 import numpy as np
 import pytest
 
-from benchkit.adaptive import (
+from benchkit.sweep.adaptive import (
     STOP_BUDGET, STOP_TARGET, AdaptiveSettings, LoopPlanner, MeasuredPoint, fit_branch,
 )
-from benchkit.settle import SettleDetector
+from benchkit.sweep.settle import SettleDetector
 
 from bench_time_helpers import PhysicsBench, part_spec, run_adaptive
 

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from benchkit.adaptive import STOP_STALLED
+from benchkit.sweep.adaptive import STOP_STALLED
 from benchkit.benchmarks import runner
 
 REPO = Path(__file__).resolve().parents[2]

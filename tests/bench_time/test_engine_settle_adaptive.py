@@ -5,17 +5,19 @@ import math
 
 import pytest
 
-from benchkit.adaptive import MIN_PASS_GAIN, STOP_STALLED
+from benchkit.sweep.adaptive import MIN_PASS_GAIN, STOP_STALLED
 from benchkit.errors import UserError
-from benchkit.plan import parse_plan
-from benchkit.runlog import FLAGS
-from benchkit.sweep import load_parts_catalogue, resume_sweep, run_sweep
+from benchkit.sweep.plan import parse_plan
+from benchkit.sweep.runlog import FLAGS
+from benchkit.catalogue import load_catalogue
+from benchkit.sweep import resume_sweep, run_sweep
 from instruments.clock import VirtualClock
 from instruments.sim import Fault, SimBench
 
 from bench_time_helpers import CtrlCAfter, read_meta, read_rows
+from benchkit.commands.sim import demo_bench
 
-PARTS = load_parts_catalogue()
+PARTS = load_catalogue()
 LIMITS = {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 0.0}
 SETTLE = {"max_drift_pct_per_s": 0.01, "max_dwell_s": 60.0, "min_dwell_s": 0.5}
 ADAPTIVE = {"target_band_pct_of_C0": 0.5, "max_points": 40, "coarse_points": 7}
@@ -39,7 +41,7 @@ def safe(bench):
 def test_settle_rows_record_settle_time_and_final_drift(tmp_path):
     p = plan(FX03, {"start_V": 0.0, "stop_V": 4.0, "step_V": 2.0})
     clock = VirtualClock()
-    with SimBench.demo(clock=clock) as bench:
+    with demo_bench(clock=clock) as bench:
         res = run_sweep(bench, p, tmp_path / "run", clock, parts=PARTS, handle_signals=False)
         assert res.status == "complete" and safe(bench)
     rows = read_rows(tmp_path / "run")
@@ -63,7 +65,7 @@ def test_instrument_that_never_settles_ends_each_point_at_max_dwell(tmp_path):
     p = plan(FX03, {"points_V": [0.0], "branches": ["rising"], "repeats": 2},
              settle={"max_dwell_s": 8.0})
     clock = VirtualClock()
-    with SimBench.demo(clock=clock, faults=[Fault.parse("temp-drift:after=0:rate=60")]) as bench:
+    with demo_bench(clock=clock, faults=[Fault.parse("temp-drift:after=0:rate=60")]) as bench:
         res = run_sweep(bench, p, tmp_path / "run", clock, parts=PARTS, handle_signals=False)
         assert res.status == "complete" and safe(bench)
     rows = read_rows(tmp_path / "run")
@@ -79,7 +81,7 @@ def adaptive_run(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("adaptive")
     p = plan(FX05, {"points_V": [0.0, 10.0]}, adaptive=dict(ADAPTIVE))
     clock = VirtualClock()
-    with SimBench.demo(clock=clock) as bench:
+    with demo_bench(clock=clock) as bench:
         res = run_sweep(bench, p, tmp / "run", clock, parts=PARTS, handle_signals=False)
         ok = safe(bench)
     return res, read_rows(tmp / "run"), read_meta(tmp / "run"), ok
@@ -123,7 +125,7 @@ def test_adaptive_passes_are_monotonic_loops_that_turn_at_the_top(adaptive_run):
 def test_adaptive_run_resumes_the_pass_it_was_in(tmp_path):
     p = plan(FX05, {"points_V": [0.0, 10.0]}, adaptive=dict(ADAPTIVE))
     clock = VirtualClock()
-    with SimBench.demo(clock=clock) as bench:
+    with demo_bench(clock=clock) as bench:
         res = run_sweep(bench, p, tmp_path / "run", clock, CtrlCAfter(15), parts=PARTS)
         assert res.status == "aborted" and safe(bench)
         first = read_meta(tmp_path / "run")

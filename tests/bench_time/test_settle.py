@@ -1,4 +1,4 @@
-"""Settle detection (benchkit/settle.py) against the physics of the simulated part.
+"""Settle detection (benchkit/sweep/settle.py) against the physics of the simulated part.
 
 The checks rest on the relaxation law of the simulated dielectric: after a bias step the
 part's capacitance approaches its new value as exp(-t/tau) (dielectric absorption after a
@@ -12,7 +12,7 @@ import math
 import numpy as np
 import pytest
 
-from benchkit.settle import MAX_DWELL_FLAG, SettleDetector, window_drift
+from benchkit.sweep.settle import MAX_DWELL_FLAG, SettleDetector, window_drift
 
 from bench_time_helpers import READ_S, PhysicsBench, part_spec
 

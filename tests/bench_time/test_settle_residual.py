@@ -1,4 +1,4 @@
-"""The residual rule of settle detection (benchkit/settle.py): stop when the relaxation still
+"""The residual rule of settle detection (benchkit/sweep/settle.py): stop when the relaxation still
 to come is small, estimated from the dwell's own readings.
 
 The checks rest on the exponential relaxation after a bias step (dielectric absorption,
@@ -15,12 +15,13 @@ import numpy as np
 import pytest
 from scipy.optimize import curve_fit
 
-from benchkit.adaptive import (
+from benchkit.sweep.adaptive import (
     MIN_PASS_GAIN, STOP_STALLED, AdaptiveSettings, BranchStatus, LoopPlanner, PassPlan,
 )
-from benchkit.settle import SettleDetector, relaxation_residual
+from benchkit.sweep.settle import SettleDetector, relaxation_residual
 
 from bench_time_helpers import PhysicsBench, part_spec
+from benchkit.commands.sim import demo_bench
 
 STEP_V = 3.0  # 0 V -> 3 V on a 6.3 V X7R part (BD-1003): well into its knee
 
@@ -144,7 +145,7 @@ def test_a_pass_that_does_not_narrow_the_band_is_not_repeated():
 
 def test_plan_takes_a_residual_threshold_instead_of_a_drift_rate():
     from benchkit.errors import UserError
-    from benchkit.plan import parse_plan
+    from benchkit.sweep.plan import parse_plan
 
     raw = {"name": "t", "bias": {"points_V": [0.0, 4.0]},
            "measure": {"dwell": "settle", "n_readings": 3},
@@ -165,7 +166,7 @@ def test_sim_bench_truth_passes_the_turning_point_on():
     from instruments.clock import VirtualClock
     from instruments.sim import SimBench
 
-    with SimBench.demo(clock=VirtualClock()) as bench:
+    with demo_bench(clock=VirtualClock()) as bench:
         part = bench.fixture.part(3)
         for v in (0.5, 3.9):
             got = bench.true_settled_C_F(3, v, "falling", turn_V=4.0)

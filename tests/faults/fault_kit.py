@@ -13,10 +13,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "sweep"))
 
 from sweep_helpers import plan_text as sweep_plan_text  # noqa: E402  (one plan writer for both)
 
-from benchkit.plan import build_sweeps, load_plan
-from benchkit.sweep import load_parts_catalogue
+from benchkit.sweep.plan import build_sweeps, load_plan
+from benchkit.catalogue import load_catalogue
 
-PARTS = load_parts_catalogue()
+PARTS = load_catalogue()
 # demo fixture (data/fixture.toml): channel 1 holds FX-01 (BD-1001, 6.3 V), channel 3 FX-03
 SAMPLES = [
     {"sample_id": "FX-01", "part_id": "BD-1001", "channel": 1},
@@ -36,7 +36,7 @@ def write_plan(path: Path, **kw) -> Path:
 
 def planned_keys(plan_path: Path) -> list[tuple[str, int, int, str, float]]:
     """(sample_id, repeat, step_index, branch, bias_V) of every planned point, in order."""
-    from benchkit.plan import SampleRef
+    from benchkit.sweep.plan import SampleRef
 
     plan = load_plan(plan_path, PARTS)
     samples = [SampleRef(**s) for s in plan.to_dict()["samples"]]
@@ -64,18 +64,18 @@ def flags_of(row) -> set[str]:
 
 @contextlib.contextmanager
 def keep_benches(monkeypatch):
-    """Every SimBench that SimBench.demo builds (e.g. inside `benchkit measure --sim`)."""
-    from instruments.sim.bench import SimBench
+    """Every SimBench that demo_bench builds (e.g. inside `benchkit measure --sim`)."""
+    from benchkit.commands import sim as sim_command
 
     made: list = []
-    original = SimBench.demo.__func__
+    original = sim_command.demo_bench
 
-    def demo(cls, *args, **kwargs):
-        bench = original(cls, *args, **kwargs)
+    def demo(*args, **kwargs):
+        bench = original(*args, **kwargs)
         made.append(bench)
         return bench
 
-    monkeypatch.setattr(SimBench, "demo", classmethod(demo))
+    monkeypatch.setattr(sim_command, "demo_bench", demo)
     yield made
 
 

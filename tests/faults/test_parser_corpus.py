@@ -4,7 +4,7 @@ Layout: tests/faults/corpus/<parser>/<case>.<ext> with <case>.expect beside it h
 fragment the one-line message must carry (a fragment starting with ':' must follow the file
 name directly, as 'file:line: ...'). Files starting with '_' are the good companions a case
 needs (the run.json beside a bad points.csv, and the other way round). The corpora of other
-test folders are reused as they are (tests/sim/malformed_parts, tests/verify/malformed_claims;
+test folders are reused as they are (tests/catalogue/malformed_parts, tests/verify/malformed_claims;
 their own tests hold their expected messages): here they must pass the same rules through the
 command line, one line, exit 2, nothing written.
 
@@ -20,18 +20,18 @@ from pathlib import Path
 
 import pytest
 
-from benchkit.benchfile import load_bench
+from benchkit.sweep.benchfile import load_bench
 from benchkit.cli import main
 from benchkit.errors import UserError
-from benchkit.plan import load_plan
+from benchkit.sweep.plan import load_plan
 from benchkit.verify.claims import load_claim
-from instruments.sim.parts import DEMO_PARTS, PartsFileError, load_fixture, load_lot, load_parts
+from benchkit.catalogue import DEMO_PARTS, PartsFileError, load_fixture, load_lot, load_parts
 
 from fault_kit import PARTS
 
 HERE = Path(__file__).resolve().parent
 CORPUS = HERE / "corpus"
-REUSED_PARTS = HERE.parent / "sim" / "malformed_parts"
+REUSED_PARTS = HERE.parent / "catalogue" / "malformed_parts"
 REUSED_CLAIMS = HERE.parent / "verify" / "malformed_claims"
 PARSERS = ("plan", "bench", "curve", "points", "run_json", "library", "parts", "claims")
 # Known open parser bugs, as strict xfails: a fix shows as XPASS, so the mark gets removed. fits/ raises, benchkit/library/fitsbridge.py words it for the command line.
@@ -224,10 +224,16 @@ def test_parts_file(path):
 
 @pytest.mark.parametrize("path", [*cases("parts"), *sorted(REUSED_PARTS.glob("*.toml"))],
                          ids=lambda p: f"{p.parent.name}/{p.name}")
-def test_parts_file_on_the_command_line_writes_nothing(path, tmp_path, capsys):
+def test_parts_file_on_the_command_line_writes_nothing(path, tmp_path, tmp_path_factory, capsys):
     if path.name.startswith(("fixture", "lot")):
         argv = ["sim", "--lot" if path.name.startswith("lot") else "--virtual-clock", "--fixture", str(path)]
         argv += ["--bench-file", str(tmp_path / "bench.toml")]
+    elif path.name.startswith("sim_"):
+        # the [part.sim] physics is the simulator's to read: the command that starts one refuses
+        fixture = tmp_path_factory.mktemp("fixture") / "fixture.toml"
+        fixture.write_text('[[channel]]\nchannel = 1\nsample_id = "S-1"\npart_id = "BD-9001"\n')
+        argv = ["sim", "--virtual-clock", "--parts", str(path), "--fixture", str(fixture),
+                "--bench-file", str(tmp_path / "bench.toml")]
     else:
         argv = ["library", "add-parts", str(path), "--library", str(tmp_path / "lib.sqlite")]
     assert main(argv) == 2

@@ -24,17 +24,18 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from benchkit import runlog
-from benchkit.benchfile import bench_from_dict, parse_bench_text
+from benchkit.sweep import runlog
+from benchkit.sweep.benchfile import bench_from_dict, parse_bench_text
 from benchkit.errors import UserError
-from benchkit.plan import Plan, load_plan, parse_plan
+from benchkit.sweep.plan import Plan, load_plan, parse_plan
 from benchkit.units import parse_value
 from benchkit.verify.claims import parse_claim
 from instruments.sim.faults import Fault, FaultSpecError
-from instruments.sim.parts import (DEMO_FIXTURE, DEMO_LOT, DEMO_PARTS, PartsFileError, load_fixture,
+from benchkit.catalogue import (DEMO_FIXTURE, DEMO_LOT, DEMO_PARTS, PartsFileError, load_fixture,
                                    load_lot, load_parts)
 
 from fault_kit import PARTS
+from benchkit.commands.sim import demo_bench
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parents[1]
@@ -166,9 +167,9 @@ def test_parse_plan_on_any_values(raw):
 
 # -- parts, fixture and lot files -----------------------------------------------------------
 
-PARTS_SEEDS = texts_from(DEMO_PARTS, *sorted((HERE.parent / "sim" / "malformed_parts").glob("[!fl]*.toml"))[:6])
-FIXTURE_SEEDS = texts_from(DEMO_FIXTURE, *sorted((HERE.parent / "sim" / "malformed_parts").glob("fixture_*.toml")))
-LOT_SEEDS = texts_from(DEMO_LOT, *sorted((HERE.parent / "sim" / "malformed_parts").glob("lot_*.toml")))
+PARTS_SEEDS = texts_from(DEMO_PARTS, *sorted((HERE.parent / "catalogue" / "malformed_parts").glob("[!fl]*.toml"))[:6])
+FIXTURE_SEEDS = texts_from(DEMO_FIXTURE, *sorted((HERE.parent / "catalogue" / "malformed_parts").glob("fixture_*.toml")))
+LOT_SEEDS = texts_from(DEMO_LOT, *sorted((HERE.parent / "catalogue" / "malformed_parts").glob("lot_*.toml")))
 
 
 @settings(**{**SETTINGS, "max_examples": 100})
@@ -315,7 +316,7 @@ def run_folder(scratch):
 @settings(**SETTINGS)
 @given(data=st.data())
 def test_points_reader_accepts_or_gives_one_line(run_folder, data):
-    from benchkit.rundata import read_run_dir  # the reader of `benchkit fit`, library and verify
+    from benchkit.sweep.rundir import read_run_dir  # the reader of `benchkit fit`, library and verify
 
     raw = data.draw(st.one_of(documents(POINTS_SEEDS).map(lambda t: t.encode("utf-8", "surrogatepass")),
                               st.binary(max_size=400)))
@@ -388,7 +389,7 @@ def sim_instruments():
     from instruments.clock import VirtualClock
     from instruments.sim import SimBench
 
-    bench = SimBench.demo(clock=VirtualClock())  # not started: the parsers alone
+    bench = demo_bench(clock=VirtualClock())  # not started: the parsers alone
     return bench.instruments
 
 

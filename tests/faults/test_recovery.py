@@ -13,12 +13,13 @@ import re
 
 import pytest
 
-from benchkit.plan import load_plan
+from benchkit.sweep.plan import load_plan
 from benchkit.sweep import run_sweep
 from instruments.clock import VirtualClock
 from instruments.sim import Fault, SimBench
 
 from fault_kit import PARTS, Spy, flags_of, planned_keys, read_meta, read_rows, row_keys, write_plan
+from benchkit.commands.sim import demo_bench
 
 # not the reset values (1 kHz, 1 V, CPD: COMMANDS.md), so that a meter that restarted and was
 # not set up again would show
@@ -29,7 +30,7 @@ def sweep(tmp_path, faults=(), reset_on_drop=False, measure=MEASURE):
     plan_path = write_plan(tmp_path / "plan.toml", measure=measure)
     plan = load_plan(plan_path, PARTS)
     clock = VirtualClock()
-    bench = SimBench.demo(clock=clock, faults=[Fault.parse(f) for f in faults])
+    bench = demo_bench(clock=clock, faults=[Fault.parse(f) for f in faults])
     with bench:
         spy = Spy(bench, reset_on_drop)
         result = run_sweep(bench, plan, tmp_path / "run", clock, parts=PARTS,

@@ -23,13 +23,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from benchkit.cli import build_parser, main
-from benchkit.plan import load_plan
+from benchkit.sweep.plan import load_plan
 from benchkit.sweep import run_sweep
 from instruments.clock import VirtualClock
 from instruments.sim import SimBench
-from instruments.sim.parts import DEMO_FIXTURE, DEMO_PARTS, load_fixture, load_parts
+from benchkit.catalogue import DEMO_FIXTURE, DEMO_PARTS, load_fixture, load_parts
 
 from fault_kit import Spy, read_rows, write_plan
+from benchkit.commands.sim import demo_bench, sim_bench
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -52,7 +53,7 @@ def listening_addresses(port: int) -> set[str]:
 @pytest.mark.skipif(not Path("/proc/net/tcp").exists(), reason="needs Linux /proc/net/tcp")
 def test_sim_bench_listens_on_loopback_only_by_default():
     assert inspect.signature(SimBench).parameters["host"].default == "127.0.0.1"
-    with SimBench.demo(clock=VirtualClock()) as bench:
+    with demo_bench(clock=VirtualClock()) as bench:
         for role, resource in bench.resources.items():
             port = int(resource.split("::")[2])
             assert listening_addresses(port) == {"127.0.0.1"}, role
@@ -82,7 +83,7 @@ def test_ids_in_parts_fixture_and_plan_never_reach_an_instrument(tmp_path):
     plan = load_plan(write_plan(tmp_path / "plan.toml", samples=[
         {"sample_id": INJECTED_SAMPLE, "part_id": INJECTED_PART, "channel": 1}]), parts)
     clock = VirtualClock()
-    with SimBench(parts, slots, clock=clock) as bench:
+    with sim_bench(parts, slots, clock=clock) as bench:
         spy = Spy(bench)
         result = run_sweep(bench, plan, tmp_path / "run", clock, parts=parts, handle_signals=False)
         errors = {role: inst.errors.entries() for role, inst in bench.instruments.items()}
@@ -100,7 +101,7 @@ def test_a_profile_with_a_second_command_is_refused_before_the_bias(tmp_path, ca
     bad = tmp_path / "sneaky-lcr.toml"
     bad.write_text((profiles / "generic-lcr.toml").read_text()
                    .replace('set = "SOURce:FREQuency {value}"', 'set = "SOURce:FREQuency {value};:OUTP ON"'))
-    with SimBench.demo(clock=VirtualClock()) as bench:
+    with demo_bench(clock=VirtualClock()) as bench:
         spy = Spy(bench)
         doc = tomllib.loads(bench.bench_file_text())
         bench_file = tmp_path / "bench.toml"

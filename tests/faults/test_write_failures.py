@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pytest
 
-from benchkit import runlog
+from benchkit.sweep import runlog
 from benchkit.atomic import write_text_atomic
 from benchkit.cli import main
 from benchkit.errors import UserError
@@ -198,8 +198,8 @@ def test_fits_curve_save_on_a_full_disk_keeps_the_old_document(tmp_path, monkeyp
 
 ATOMIC_MODULES = {"benchkit/atomic.py", "fits/_atomic.py"}
 # points.csv is the one file written in place: appended row by row, fsync'ed, and on resume
-# cut back to its last whole row (documented in benchkit/runlog.py)
-APPEND_ONLY = {"benchkit/runlog.py"}
+# cut back to its last whole row (documented in benchkit/sweep/runlog.py)
+APPEND_ONLY = {"benchkit/sweep/runlog.py"}
 
 
 def _write_calls(path: Path) -> list[str]:

@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from benchkit import runlog
+from benchkit.sweep import runlog
 
 PARTS = [
     {"id": "BD-1001", "description": "10 uF 6.3 V X5R 0402", "nominal_C_F": 10e-6, "tolerance": "M",

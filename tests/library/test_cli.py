@@ -18,8 +18,8 @@ def _run(capsys, *argv):
 
 
 def test_add_parts_from_the_demo_catalogue(tmp_path, capsys):
-    # the real parts file of the repo (DEVELOPERS.md, "File formats": parts file), read by instruments.sim.parts.load_parts
-    from instruments.sim.parts import DEMO_PARTS, load_parts
+    # the real parts file of the repo (DEVELOPERS.md, "File formats": parts file), read by benchkit.catalogue.load_parts
+    from benchkit.catalogue import DEMO_PARTS, load_parts
 
     lib = str(tmp_path / "demo.sqlite")
     code, out, _ = _run(capsys, "library", "--library", lib, "add-parts", str(DEMO_PARTS))

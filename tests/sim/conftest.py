@@ -7,6 +7,7 @@ import pyvisa
 
 from instruments.clock import VirtualClock
 from instruments.sim import SimBench
+from benchkit.commands.sim import demo_bench
 
 
 @pytest.fixture(scope="module")
@@ -18,5 +19,5 @@ def rm():
 
 @pytest.fixture(scope="module")
 def bench():
-    with SimBench.demo(clock=VirtualClock()) as b:
+    with demo_bench(clock=VirtualClock()) as b:
         yield b

@@ -15,11 +15,12 @@ import pytest
 from instruments.clock import VirtualClock
 from instruments.sim import SimBench
 from instruments.sim.fixture import Wiring
+from benchkit.commands.sim import demo_bench
 
 
 @pytest.fixture
 def bench():
-    with SimBench.demo(clock=VirtualClock()) as b:
+    with demo_bench(clock=VirtualClock()) as b:
         yield b
 
 
@@ -186,10 +187,10 @@ def test_bench_file_parses_and_names_every_instrument_and_sample(bench):
 
 def test_lot_bench_puts_each_sample_on_its_channel(rm):
     # data/lot.toml (invented): six samples of BD-1004, each with its own C_scale
-    from instruments.sim.parts import DEMO_LOT, load_lot
+    from benchkit.catalogue import DEMO_LOT, load_lot
 
     lot = {s.channel: s for s in load_lot(DEMO_LOT)}
-    with SimBench.demo(clock=VirtualClock(), lot=True) as b:
+    with demo_bench(clock=VirtualClock(), lot=True) as b:
         doc = tomllib.loads(b.bench_file_text())
         assert [(c["channel"], c["sample_id"]) for c in doc["channel"]] == \
             [(ch, lot[ch].sample_id) for ch in sorted(lot)]
@@ -213,7 +214,7 @@ def test_lot_bench_puts_each_sample_on_its_channel(rm):
 def test_same_seed_same_readings(rm):
     # common practice for simulators: a seeded bench repeats itself exactly
     def first_readings(seed):
-        with SimBench.demo(clock=VirtualClock(), seed=seed) as b:
+        with demo_bench(clock=VirtualClock(), seed=seed) as b:
             m = rm.open_resource(b.resources["meter"], read_termination="\n",
                                  write_termination="\n", timeout=3000)
             sc = rm.open_resource(b.resources["scanner"], read_termination="\n",

@@ -125,7 +125,7 @@ def test_bad_parts_file_is_one_line_and_exit_2(tmp_path):
 def test_bad_input_in_process_is_one_line_and_exit_2(tmp_path, capsys, args, words):
     # benchkit/errors.py: exit code 2 and one line; the same entry point as the subprocess
     from benchkit.cli import main
-    from instruments.sim.parts import DEMO_FIXTURE
+    from benchkit.catalogue import DEMO_FIXTURE
 
     args = [a.format(missing=tmp_path / "nope.toml", fixture=DEMO_FIXTURE) for a in args]
     assert main(["sim", *args]) == 2

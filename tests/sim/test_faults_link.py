@@ -16,11 +16,12 @@ from pyvisa.errors import VisaIOError
 
 from instruments.clock import VirtualClock
 from instruments.sim import Fault, SimBench
+from benchkit.commands.sim import demo_bench
 
 
 @pytest.fixture
 def bench():
-    with SimBench.demo(clock=VirtualClock()) as b:
+    with demo_bench(clock=VirtualClock()) as b:
         yield b
 
 
@@ -164,8 +165,8 @@ def test_temp_drift_ramps_the_chamber_from_the_trigger_on(rm, bench):
 
 
 def test_faults_given_at_construction_are_armed_at_start(rm):
-    # contract section 2: SimBench(..., faults=...) / SimBench.demo(faults=...)
-    with SimBench.demo(clock=VirtualClock(), faults=[Fault.parse("garble:after=1")]) as b:
+    # contract section 2: SimBench(..., faults=...) / demo_bench(faults=...)
+    with demo_bench(clock=VirtualClock(), faults=[Fault.parse("garble:after=1")]) as b:
         m = open_res(rm, b.resources["meter"])
         try:
             assert m.query("*IDN?").startswith(IDN_METER)

@@ -10,14 +10,15 @@ import pytest
 from scipy.optimize import curve_fit
 
 from instruments.clock import VirtualClock
-from instruments.sim.parts import (
-    DEMO_LOT, DEMO_PARTS, class_limits, load_lot, load_parts, standard_conditions,
-)
+from benchkit.catalogue import DEMO_LOT, DEMO_PARTS, load_lot, load_parts
+from benchkit.catalogue.codes import tolerance_limits_F
+from benchkit.commands.sim import simulated_parts
 from instruments.sim.physics import (
     SimulatedPart, aging_ratio, langevin_weight, level_across_part_Vrms, series_to_parallel,
 )
 
-PARTS = load_parts(DEMO_PARTS)
+CATALOGUE = load_parts(DEMO_PARTS)
+PARTS = simulated_parts(CATALOGUE)  # what the simulated bench is handed of each part
 CLASS2 = [pid for pid, p in PARTS.items() if p.dielectric_class == 2]
 
 
@@ -27,6 +28,11 @@ def make(pid_or_spec, seed=0, clock=None, sample=None, **sim_over):
         spec = dataclasses.replace(spec, sim=dataclasses.replace(spec.sim, **sim_over))
     clock = clock or VirtualClock()
     return SimulatedPart(spec, clock, np.random.default_rng(seed), sample), clock
+
+
+def standard_conditions(spec):
+    """The reference conditions the bench was handed (IEC 60384-1 clause 4.2.2, by the catalogue)."""
+    return spec.ref_freq_Hz, spec.ref_level_Vrms
 
 
 def settle(part, clock, V, n_tau=30.0):
@@ -96,7 +102,7 @@ def test_temperature_curve_within_eia198_code(pid):
     # standard: EIA-198 (X5R -55..85 degC +-15 %, X7R -55..125 degC +-15 %, C0G 0 +-30 ppm/K),
     # reference 25 degC
     part, _ = make(pid)
-    lim = class_limits(part.spec.class_code)
+    lim = part.spec.band
     T = np.linspace(lim.low_C, lim.high_C, 361)
     c25 = part.true_settled_C_F(0.0, temp_C=25.0)
     c = np.array([part.true_settled_C_F(0.0, temp_C=t) for t in T])
@@ -148,7 +154,7 @@ def test_small_case_high_value_x5r_loses_over_80_pct_within_rating():
     # common practice: small-case high-value X5R parts lose > 80 % inside their rated voltage,
     # and derating by 50 % is not enough to avoid a large loss
     spec = PARTS["BD-1001"]
-    assert (spec.class_code, spec.case, spec.nominal_C_F) == ("X5R", "0402", 10e-6)
+    assert (spec.class_code, CATALOGUE["BD-1001"].case, spec.nominal_C_F) == ("X5R", "0402", 10e-6)
     assert loss_pct("BD-1001", spec.rated_V) > 80.0
     assert loss_pct("BD-1001", 0.5 * spec.rated_V) > 40.0
 
@@ -158,7 +164,7 @@ def test_larger_case_same_value_and_rating_loses_less():
     small, large = PARTS["BD-1001"], PARTS["BD-1002"]
     assert (small.nominal_C_F, small.rated_V, small.class_code) == \
         (large.nominal_C_F, large.rated_V, large.class_code)
-    assert int(large.case) > int(small.case)
+    assert int(CATALOGUE["BD-1002"].case) > int(CATALOGUE["BD-1001"].case)
     for frac in (0.25, 0.5, 1.0):
         assert loss_pct("BD-1002", frac * large.rated_V) < loss_pct("BD-1001", frac * small.rated_V)
 
@@ -166,7 +172,8 @@ def test_larger_case_same_value_and_rating_loses_less():
 def test_x7r_loses_no_more_than_x5r_of_the_same_build():
     # common practice (I. Novak et al., DesignCon East 2011): X7R usually does a little better
     x5r, x7r = PARTS["BD-1002"], PARTS["BD-1003"]
-    assert (x5r.nominal_C_F, x5r.rated_V, x5r.case) == (x7r.nominal_C_F, x7r.rated_V, x7r.case)
+    assert (x5r.nominal_C_F, x5r.rated_V, CATALOGUE[x5r.id].case) == \
+        (x7r.nominal_C_F, x7r.rated_V, CATALOGUE[x7r.id].case)
     assert (x5r.class_code, x7r.class_code) == ("X5R", "X7R")
     for V in np.linspace(0.5, x5r.rated_V, 12):
         for branch in ("rising", "falling"):
@@ -412,9 +419,9 @@ def test_leakage_follows_insulation_resistance():
 
 def test_lot_samples_have_their_own_spread_within_tolerance():
     # IEC 60062: letter K = +-10 %; tolerances at 1000 h since heat (EIA-198-1 1.1.2)
-    lot = load_lot(DEMO_LOT, PARTS)
+    lot = load_lot(DEMO_LOT, CATALOGUE)
     spec = PARTS[lot[0].part_id]
-    lo, hi = spec.tolerance_limits_F()
+    lo, hi = CATALOGUE[spec.id].tolerance_limits_F()
     c0, c_rated = [], []
     for s in lot:
         s1000 = dataclasses.replace(s, hours_since_heat_h=1000.0)

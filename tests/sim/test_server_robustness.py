@@ -16,6 +16,7 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 from instruments.clock import VirtualClock
 from instruments.sim import SimBench, SimBenchError
 from instruments.sim.bench import ROLE_ORDER
+from benchkit.commands.sim import demo_bench
 
 MODELS = {"meter": "SIM-LCR", "supply": "SIM-DCS", "scanner": "SIM-MUX",
           "thermometer": "SIM-THERMO"}
@@ -201,7 +202,7 @@ def test_handler_failure_becomes_a_queued_error_not_a_dead_server(rm, bench, mon
 
 def test_stop_closes_client_connections_and_ports():
     # common practice: a stopped server closes its clients and no longer listens
-    b = SimBench.demo(clock=VirtualClock()).start()
+    b = demo_bench(clock=VirtualClock()).start()
     resource = b.resources["meter"]
     sock = raw_connection(resource)
     sock.sendall(b"*IDN?\n")
@@ -227,7 +228,7 @@ def test_many_benches_leak_no_threads_or_sockets():
     # common practice: servers started and stopped in a test session leave nothing behind,
     # even while their clients are still connected (stop() must close those connections)
     def cycle():
-        with SimBench.demo(clock=VirtualClock()) as b:
+        with demo_bench(clock=VirtualClock()) as b:
             sock = raw_connection(b.resources["supply"])
             sock.sendall(b"*IDN?\n")
             read_line(sock)
@@ -290,10 +291,10 @@ def test_base_port_layout_and_port_in_use():
     base = _free_base_port()
     if base is None:
         pytest.skip("no four consecutive free ports found")
-    with SimBench.demo(clock=VirtualClock(), base_port=base) as first:
+    with demo_bench(clock=VirtualClock(), base_port=base) as first:
         assert [address(first.resources[r])[1] for r in ROLE_ORDER] == [base + i for i in range(4)]
         threads = threading.active_count()
-        second = SimBench.demo(clock=VirtualClock(), base_port=base)
+        second = demo_bench(clock=VirtualClock(), base_port=base)
         with pytest.raises(SimBenchError, match=f"cannot listen on 127.0.0.1:{base} for the meter"):
             second.start()
         assert not second.running

@@ -12,7 +12,7 @@ import sys
 import time
 from pathlib import Path
 
-from benchkit.progress import Progress
+from benchkit.sweep.progress import Progress
 
 REPO = Path(__file__).resolve().parents[2]
 

@@ -19,12 +19,13 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from sweep_helpers import write_plan  # noqa: E402
 
-from benchkit import rundata
-from benchkit.plan import load_plan
+from benchkit.sweep import rundir
+from benchkit.sweep.plan import load_plan
 from benchkit.sweep import run_sweep
 from fits import fit_branches
 from instruments.clock import VirtualClock
 from instruments.sim import SimBench
+from benchkit.commands.sim import demo_bench
 
 STATED_ERROR_PCT_OF_C0 = 1.0
 
@@ -36,10 +37,10 @@ def fitted(tmp_path_factory):
         tmp / "plan.toml",
         bias={"start_V": None, "stop_V": None, "step_V": None, "fraction_of_rated": 1.0, "steps": 12},
         measure={"dwell_s": 5.0, "n_readings": 3}))
-    with SimBench.demo(clock=VirtualClock()) as bench:
+    with demo_bench(clock=VirtualClock()) as bench:
         result = run_sweep(bench, plan, tmp / "run", handle_signals=False)
         assert result.status == "complete"
-        data = rundata.read_run_dir(tmp / "run")
+        data = rundir.read_run_dir(tmp / "run")
         out = []
         for sid, s in data.samples.items():
             outcome = fit_branches(s.bias_V, s.C_F, s.branch, s.sigma_F, model="auto")

@@ -15,6 +15,7 @@ from instruments.clock import VirtualClock
 from instruments.sim import SimBench
 
 from sweep_helpers import REPO, CtrlCAfter, read_meta, read_rows, write_plan
+from benchkit.commands.sim import demo_bench
 
 DEMO_PLAN = REPO / "data" / "plans" / "demo.toml"
 
@@ -30,7 +31,7 @@ def _one_line_exit_2(capsys, argv):
 
 @pytest.fixture
 def bench():
-    with SimBench.demo(clock=VirtualClock()) as b:
+    with demo_bench(clock=VirtualClock()) as b:
         yield b
 
 
@@ -158,8 +159,8 @@ def test_lot_fixture_all_channels_when_the_plan_names_no_samples(tmp_path, capsy
 
 
 def test_resume_of_a_bench_file_run_uses_the_stored_bench(tmp_path, capsys, bench):
-    from benchkit.benchfile import load_bench
-    from benchkit.plan import load_plan
+    from benchkit.sweep.benchfile import load_bench
+    from benchkit.sweep.plan import load_plan
     from benchkit.sweep import run_sweep
 
     bf = _bench_file(tmp_path, bench)  # a bench-file run resumes on a real clock: keep it short
@@ -177,8 +178,8 @@ def test_resume_of_a_bench_file_run_uses_the_stored_bench(tmp_path, capsys, benc
 
 
 def test_resume_refuses_a_different_plan(tmp_path, capsys, bench):
-    from benchkit.benchfile import load_bench
-    from benchkit.plan import load_plan
+    from benchkit.sweep.benchfile import load_bench
+    from benchkit.sweep.plan import load_plan
     from benchkit.sweep import run_sweep
 
     plan_path = _plan(tmp_path)

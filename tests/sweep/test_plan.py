@@ -5,12 +5,12 @@ from pathlib import Path
 import pytest
 
 from benchkit.errors import UserError
-from benchkit.plan import SampleRef, build_sweeps, discharge_wait_s, load_plan, parse_plan, resolve_samples
-from benchkit.sweep import load_parts_catalogue
+from benchkit.sweep.plan import SampleRef, build_sweeps, discharge_wait_s, load_plan, parse_plan, resolve_samples
+from benchkit.catalogue import load_catalogue
 
 from sweep_helpers import REPO, write_plan
 
-PARTS = load_parts_catalogue()  # demo catalogue: BD-1001 is 10 uF 6.3 V X5R, BD-1008 10 nF 50 V C0G
+PARTS = load_catalogue()  # demo catalogue: BD-1001 is 10 uF 6.3 V X5R, BD-1008 10 nF 50 V C0G
 
 
 def _load(tmp_path, **kw):
@@ -18,7 +18,7 @@ def _load(tmp_path, **kw):
 
 
 def test_demo_plan_is_valid_for_the_demo_fixture():
-    from instruments.sim.parts import DEMO_FIXTURE, load_fixture
+    from benchkit.catalogue import DEMO_FIXTURE, load_fixture
 
     plan = load_plan(REPO / "data" / "plans" / "demo.toml", PARTS)
     chans = [SampleRef(s.sample_id, s.part_id, s.channel) for s in load_fixture(DEMO_FIXTURE)]

@@ -3,7 +3,7 @@ no control characters when the output is a file or a pipe)."""
 
 import io
 
-from benchkit.progress import Progress, format_duration
+from benchkit.sweep.progress import Progress, format_duration
 
 
 class _Wall:

@@ -9,8 +9,8 @@ import signal
 import pytest
 
 from benchkit.errors import UserError
-from benchkit.runlog import COLUMNS, FLAGS, RunLog, join_flags, read_points, read_run
-from benchkit.safety import Interrupted, SignalGuard
+from benchkit.sweep.runlog import COLUMNS, FLAGS, RunLog, join_flags, read_points, read_run
+from benchkit.sweep.safety import Interrupted, SignalGuard
 
 # DEVELOPERS.md, "File formats": run directory (the interface the fitting and verification code reads)
 CONTRACT_COLUMNS = (

@@ -16,19 +16,20 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from sweep_helpers import read_meta, write_plan  # noqa: E402
 
-from benchkit.benchfile import parse_bench_text
+from benchkit.sweep.benchfile import parse_bench_text
 from benchkit.errors import UserError
-from benchkit.plan import load_plan
+from benchkit.sweep.plan import load_plan
 from benchkit.sweep import run_sweep
 from instruments.clock import VirtualClock
 from instruments.sim import SimBench
-from instruments.sim.parts import DEMO_LOT, DEMO_PARTS, load_lot, load_parts
+from benchkit.catalogue import DEMO_LOT, DEMO_PARTS, load_lot, load_parts
+from benchkit.commands.sim import demo_bench
 
 
 def test_plan_sample_age_is_recorded(tmp_path):
     plan = load_plan(write_plan(tmp_path / "p.toml", samples=[
         {"sample_id": "FX-04", "part_id": "BD-1004", "channel": 4, "hours_since_heat_h": 500.0}]))
-    with SimBench.demo(clock=VirtualClock()) as bench:
+    with demo_bench(clock=VirtualClock()) as bench:
         result = run_sweep(bench, plan, tmp_path / "run", handle_signals=False)
     assert result.status == "complete"
     (entry,) = read_meta(tmp_path / "run")["samples"]
@@ -38,7 +39,7 @@ def test_plan_sample_age_is_recorded(tmp_path):
 def test_simulated_lot_reports_its_ages_in_the_bench_file(tmp_path):
     parts = load_parts(DEMO_PARTS)
     want = {s.sample_id: s.hours_since_heat_h for s in load_lot(DEMO_LOT, parts)}
-    with SimBench.demo(clock=VirtualClock(), lot=True) as bench:
+    with demo_bench(clock=VirtualClock(), lot=True) as bench:
         bench_file = parse_bench_text(bench.bench_file_text(), "sim")
         result = run_sweep(bench, load_plan(write_plan(tmp_path / "p.toml")), tmp_path / "run",
                            handle_signals=False)

@@ -6,16 +6,18 @@ from datetime import datetime
 
 import pytest
 
-from benchkit.plan import load_plan
-from benchkit.runlog import COLUMNS
-from benchkit.sweep import load_parts_catalogue, resume_sweep, run_sweep
+from benchkit.sweep.plan import load_plan
+from benchkit.sweep.runlog import COLUMNS
+from benchkit.catalogue import load_catalogue
+from benchkit.sweep import resume_sweep, run_sweep
 from instruments.clock import VirtualClock
 from instruments.sim import Fault, SimBench
-from instruments.sim.parts import tolerance_limits_F
+from benchkit.catalogue.codes import tolerance_limits_F
 
 from sweep_helpers import CtrlCAfter, read_meta, read_rows, write_plan
+from benchkit.commands.sim import demo_bench
 
-PARTS = load_parts_catalogue()
+PARTS = load_catalogue()
 SAMPLES = [  # demo fixture channels 1, 3, 4: two 6.3 V 10 uF parts and a 25 V 1 uF part
     {"sample_id": "FX-01", "part_id": "BD-1001", "channel": 1},
     {"sample_id": "FX-03", "part_id": "BD-1003", "channel": 3},
@@ -32,7 +34,7 @@ def swept(tmp_path_factory):
     plan = load_plan(write_plan(tmp / "plan.toml", samples=SAMPLES,
                                 bias={"stop_V": 6.0, "step_V": 2.0}), PARTS)
     clock = VirtualClock()
-    with SimBench.demo(clock=clock) as bench:
+    with demo_bench(clock=clock) as bench:
         result = run_sweep(bench, plan, tmp / "run", clock, parts=PARTS)
         yield result, read_rows(tmp / "run"), read_meta(tmp / "run"), bench
 
@@ -144,7 +146,7 @@ def test_current_limit_is_flagged(tmp_path):
     plan = _one_sample_plan(tmp_path)
     clock = VirtualClock()
     # the supply's limit drops to 1e-7 A: charging current is capped, the terminal voltage sags
-    with SimBench.demo(clock=clock, faults=[Fault.parse("current-limit:after=0:limit=1e-7")]) as bench:
+    with demo_bench(clock=clock, faults=[Fault.parse("current-limit:after=0:limit=1e-7")]) as bench:
         res = run_sweep(bench, plan, tmp_path / "run", clock, parts=PARTS)
         assert bench.supply_state()["output_on"] is False
     rows = read_rows(tmp_path / "run")
@@ -158,7 +160,7 @@ def test_instrument_error_aborts_safely_and_resume_completes(tmp_path):
     plan = load_plan(write_plan(tmp_path / "plan.toml", samples=SAMPLES[:2]), PARTS)
     clock = VirtualClock()
     # an error left in the meter's queue: the next error check (configuring sample 2) fails
-    with SimBench.demo(clock=clock, faults=[Fault.parse("error:after=20")]) as bench:
+    with demo_bench(clock=clock, faults=[Fault.parse("error:after=20")]) as bench:
         res = run_sweep(bench, plan, tmp_path / "run", clock, parts=PARTS)
         assert bench.supply_state() == {"set_V": 0.0, "output_on": False, "terminal_V": 0.0}
         meta = read_meta(tmp_path / "run")
@@ -178,7 +180,7 @@ def test_instrument_error_aborts_safely_and_resume_completes(tmp_path):
 def test_sigint_mid_sample_then_resume_approaches_from_above(tmp_path):
     plan = _one_sample_plan(tmp_path)
     clock = VirtualClock()
-    with SimBench.demo(clock=clock) as bench:
+    with demo_bench(clock=clock) as bench:
         res = run_sweep(bench, plan, tmp_path / "run", clock, CtrlCAfter(3), parts=PARTS)
         assert res.status == "aborted" and res.reason.startswith("SIGINT")
         assert bench.supply_state() == {"set_V": 0.0, "output_on": False, "terminal_V": 0.0}
@@ -197,7 +199,7 @@ def test_sigint_mid_sample_then_resume_approaches_from_above(tmp_path):
 def test_overload_reading_left_out_and_flagged(tmp_path):
     plan = _one_sample_plan(tmp_path, bias={"stop_V": 2.0, "step_V": 2.0}, measure={"n_readings": 3})
     clock = VirtualClock()
-    with SimBench.demo(clock=clock, faults=[Fault.parse("overload:after=25")]) as bench:
+    with demo_bench(clock=clock, faults=[Fault.parse("overload:after=25")]) as bench:
         res = run_sweep(bench, plan, tmp_path / "run", clock, parts=PARTS)
     rows = read_rows(tmp_path / "run")
     over = [r for r in rows if "overload" in r["flags"]]
@@ -209,7 +211,7 @@ def test_temperature_change_is_flagged(tmp_path):
     plan = _one_sample_plan(tmp_path)
     clock = VirtualClock()
     # the chamber drifts 30 degC per clock minute: beyond temp_tolerance_C = 2 after the first point
-    with SimBench.demo(clock=clock, faults=[Fault.parse("temp-drift:after=0:rate=30")]) as bench:
+    with demo_bench(clock=clock, faults=[Fault.parse("temp-drift:after=0:rate=30")]) as bench:
         run_sweep(bench, plan, tmp_path / "run", clock, parts=PARTS)
     rows = read_rows(tmp_path / "run")
     t0 = float(rows[0]["temp_C"])

@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from benchkit.commands.sim import demo_bench
 
 LOT_BIAS_V = np.arange(0.0, 25.0 + 1e-9, 2.5)
 REPO = Path(__file__).resolve().parents[2]
@@ -30,7 +31,7 @@ COLUMNS = (
 
 @pytest.fixture(scope="session")
 def lot_run(tmp_path_factory) -> Path:
-    from benchkit.plan import parse_plan
+    from benchkit.sweep.plan import parse_plan
     from benchkit.sweep import run_sweep
     from instruments.clock import VirtualClock
     from instruments.sim import SimBench
@@ -43,7 +44,7 @@ def lot_run(tmp_path_factory) -> Path:
         "limits": {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 5.0},
     }, "verify test plan")
     out = tmp_path_factory.mktemp("lot") / "run"
-    with SimBench.demo(clock=VirtualClock(), lot=True, seed=7) as bench:
+    with demo_bench(clock=VirtualClock(), lot=True, seed=7) as bench:
         result = run_sweep(bench, plan, out, handle_signals=False)
     assert result.status == "complete"
     return out
@@ -53,13 +54,15 @@ def lot_run(tmp_path_factory) -> Path:
 def lot_truth() -> dict:
     """Noise-free settled C of every lot sample at LOT_BIAS_V, from the simulated physics."""
     from instruments.clock import VirtualClock
-    from instruments.sim.parts import DEMO_LOT, DEMO_PARTS, load_lot, load_parts
+    from benchkit.catalogue import DEMO_LOT, DEMO_PARTS, load_lot, load_parts
+    from benchkit.commands.sim import simulated_parts
     from instruments.sim.physics import SimulatedPart
 
     parts = load_parts(DEMO_PARTS)
+    simulated = simulated_parts(parts)
     out = {}
     for s in load_lot(DEMO_LOT, parts):
-        p = SimulatedPart(parts[s.part_id], VirtualClock(), np.random.default_rng(0), s)
+        p = SimulatedPart(simulated[s.part_id], VirtualClock(), np.random.default_rng(0), s)
         out[s.sample_id] = np.array([p.true_settled_C_F(v) for v in LOT_BIAS_V])
     return out
 
@@ -130,7 +133,7 @@ def write_run(run_dir: Path, samples, bias_V, *, noise_frac=1e-4, n_readings=4, 
 
 
 def part_dict(part_id="BD-1004"):
-    from instruments.sim.parts import DEMO_PARTS, catalogue_dict, load_parts
+    from benchkit.catalogue import DEMO_PARTS, catalogue_dict, load_parts
 
     return catalogue_dict(load_parts(DEMO_PARTS)[part_id])
 

@@ -9,7 +9,7 @@ import pytest
 from hypothesis import given, strategies as st
 
 from benchkit.cli import main
-from benchkit.codes import parse_tolerance
+from benchkit.catalogue.codes import parse_tolerance
 from benchkit.errors import EXIT_BAD_INPUT, EXIT_OK, UserError
 from benchkit.verify import budget
 
@@ -34,7 +34,7 @@ def curve(params, temp_C=25.0, sample="S-1", u_rel=0.0):
 @pytest.fixture
 def library(tmp_path):
     from benchkit.library import Library
-    from instruments.sim.parts import DEMO_PARTS, load_parts
+    from benchkit.catalogue import DEMO_PARTS, load_parts
 
     path = tmp_path / "lib.sqlite"
     with Library(path) as lib:

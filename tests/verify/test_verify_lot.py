@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from benchkit.cli import main
-from benchkit.codes import parse_tolerance
+from benchkit.catalogue.codes import parse_tolerance
 from benchkit.errors import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_OK, EXIT_UNDECIDED, UserError
 from benchkit.verify import compare
 from benchkit.verify.claims import load_claim, parse_claim
@@ -297,7 +297,7 @@ def test_flagged_points_are_left_out_and_said_so(tmp_path, tools, lot_truth):
     ], tools.LOT_BIAS_V)
     pts = run / "points.csv"
     lines = pts.read_text().splitlines()
-    # row 4: the supply sat at its current limit (benchkit.runlog.FLAGS word): the part saw
+    # row 4: the supply sat at its current limit (benchkit.sweep.runlog.FLAGS word): the part saw
     # less than the set bias, so the point cannot stand for bias_set_V
     cells = lines[4].split(",")
     cells[24] = "current_limit"
@@ -305,7 +305,7 @@ def test_flagged_points_are_left_out_and_said_so(tmp_path, tools, lot_truth):
     lines[4] = ",".join(cells)
     pts.write_text("\n".join(lines) + "\n")
     # points edited after the run ended no longer match run.json's sha256: refused, as
-    # `benchkit fit` and the library refuse them (benchkit.rundata)
+    # `benchkit fit` and the library refuse them (benchkit.sweep.rundir)
     with pytest.raises(UserError, match="sha256 differs"):
         load_inputs([run], "BD-1004", model="tanh")
     # as the sweep engine writes it: the flag set when measured, the sha256 at the end

@@ -1,0 +1,216 @@
+"""The bench file: which instrument answers at which address, and which sample sits where.
+
+Read by `benchkit measure --bench`, written by `benchkit sim --bench-file` (DEVELOPERS.md,
+"File formats"). Opening the bench checks every instrument answers (*IDN?) before any voltage is
+applied; an address that is malformed, refused or silent is bad input: one line, exit 2.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+from benchkit.errors import UserError
+from benchkit.sweep.plan import SampleRef
+from instruments.roles import DEFAULT_PROFILES, ROLES
+
+
+
+@dataclass(frozen=True)
+class InstrumentRef:
+    role: str
+    resource: str
+    profile: str  # shipped profile name or absolute path of a profile file
+    timeout_s: float | None = None
+
+    def to_dict(self) -> dict:
+        return {"resource": self.resource, "profile": self.profile, "timeout_s": self.timeout_s}
+
+
+@dataclass(frozen=True)
+class BenchFile:
+    source: str
+    instruments: Mapping[str, InstrumentRef]
+    channels: tuple[SampleRef, ...] = field(default_factory=tuple)
+
+    def to_dict(self) -> dict:
+        return {
+            "source": self.source,
+            "instruments": {r: i.to_dict() for r, i in self.instruments.items()},
+            "channels": [{"channel": c.channel, "sample_id": c.sample_id, "part_id": c.part_id}
+                         for c in self.channels],
+        }
+
+
+def load_bench(path: str | Path) -> BenchFile:
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise UserError(f"{p}: bench file not found; write one with 'benchkit sim --bench-file' or by hand") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise UserError(f"{p}: cannot read bench file ({exc})") from None
+    return parse_bench_text(text, str(p), base_dir=p.resolve().parent)
+
+
+def parse_bench_text(text: str, where: str, base_dir: Path | None = None) -> BenchFile:
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise UserError(f"{where}: not valid TOML: {exc}; fix the bench file") from None
+    return bench_from_dict(raw, where, base_dir)
+
+
+def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = None) -> BenchFile:
+    """Validate a bench mapping (TOML layout, or the 'bench' record of run.json)."""
+    unknown = sorted(set(raw) - {"instrument", "instruments", "channel", "channels", "source", "kind"})
+    if unknown:
+        raise UserError(f"{where}: unknown table '{unknown[0]}' (known: instrument, channel)")
+    inst_raw = raw.get("instrument", raw.get("instruments"))
+    if not isinstance(inst_raw, Mapping):
+        raise UserError(f"{where}: missing [instrument.meter], [instrument.supply], [instrument.scanner], [instrument.thermometer]")
+    instruments: dict[str, InstrumentRef] = {}
+    for role in ROLES:
+        t = inst_raw.get(role)
+        if not isinstance(t, Mapping):
+            raise UserError(f"{where}: missing table [instrument.{role}] with resource = \"...\"")
+        extra = sorted(set(t) - {"resource", "profile", "timeout_s"})
+        if extra:
+            raise UserError(f"{where}: [instrument.{role}]: unknown field '{extra[0]}' (known: resource, profile, timeout_s)")
+        res = t.get("resource")
+        if not isinstance(res, str) or not res.strip():
+            raise UserError(f"{where}: [instrument.{role}]: field 'resource' must be a VISA resource string, e.g. TCPIP0::127.0.0.1::5025::SOCKET")
+        check_resource_string(res, f"{where}: [instrument.{role}]")
+        prof = t.get("profile", DEFAULT_PROFILES[role])
+        if not isinstance(prof, str) or not prof.strip():
+            raise UserError(f"{where}: [instrument.{role}]: field 'profile' must be a profile name or a .toml path")
+        if (prof.endswith(".toml") or "/" in prof) and base_dir is not None and not Path(prof).is_absolute():
+            prof = str((base_dir / prof).resolve())
+        tmo = t.get("timeout_s")
+        if tmo is not None and (isinstance(tmo, bool) or not isinstance(tmo, (int, float)) or tmo <= 0):
+            raise UserError(f"{where}: [instrument.{role}]: field 'timeout_s' must be a positive number of seconds")
+        instruments[role] = InstrumentRef(role, res.strip(), prof, None if tmo is None else float(tmo))
+    extra_roles = sorted(set(inst_raw) - set(ROLES))
+    if extra_roles:
+        raise UserError(f"{where}: unknown instrument role '{extra_roles[0]}' (known: {', '.join(ROLES)})")
+    chans_raw = raw.get("channel", raw.get("channels", []))
+    if not isinstance(chans_raw, list):
+        raise UserError(f"{where}: 'channel' must be an array of [[channel]] tables")
+    channels: list[SampleRef] = []
+    seen_ch: set[int] = set()
+    seen_id: set[str] = set()
+    for i, c in enumerate(chans_raw, 1):
+        if not isinstance(c, Mapping):
+            raise UserError(f"{where}: channel entry {i}: must be a table with channel, sample_id, part_id")
+        ch, sid, pid = c.get("channel"), c.get("sample_id"), c.get("part_id")
+        if isinstance(ch, bool) or not isinstance(ch, int) or ch < 1:
+            raise UserError(f"{where}: channel entry {i}: field 'channel' must be a positive whole number")
+        for name, v in (("sample_id", sid), ("part_id", pid)):
+            if not isinstance(v, str) or not v.strip():
+                raise UserError(f"{where}: channel entry {i}: field '{name}' must be a non-empty string")
+        if ch in seen_ch or sid in seen_id:
+            raise UserError(f"{where}: channel entry {i}: channel {ch} or sample {sid!r} appears twice")
+        age = c.get("hours_since_heat_h")
+        if age is not None and (isinstance(age, bool) or not isinstance(age, (int, float))
+                                or not math.isfinite(age) or age <= 0):
+            raise UserError(f"{where}: channel entry {i}: field 'hours_since_heat_h' must be a "
+                            "positive number of hours since the last de-aging heat")
+        seen_ch.add(ch)
+        seen_id.add(sid)
+        channels.append(SampleRef(sid, pid, ch, None if age is None else float(age)))
+    return BenchFile(where, instruments, tuple(sorted(channels, key=lambda s: s.channel)))
+
+
+def check_resource_string(resource: str, where: str) -> None:
+    """Refuse what pyvisa cannot parse, with an example of what it can."""
+    from pyvisa import rname
+
+    from instruments.drivers import normalise_resource
+
+    example = "write e.g. TCPIP0::127.0.0.1::5025::SOCKET"
+    try:
+        parsed = rname.parse_resource_name(normalise_resource(resource))
+    except Exception as exc:  # pyvisa raises InvalidResourceName (a ValueError) or others
+        detail = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise UserError(f"{where}: resource {resource!r} is not a VISA resource string ({detail}); {example}") from None
+    port = getattr(parsed, "port", None)
+    if port is not None and not (str(port).isdigit() and 1 <= int(port) <= 65535):
+        raise UserError(f"{where}: resource {resource!r}: port {port!r} is not a TCP port number 1 .. 65535; {example}")
+
+
+# --------------------------------------------------------------------------- opening
+
+
+@dataclass
+class Instruments:
+    """The four open drivers of one bench (and, for the record, what they said they are)."""
+
+    meter: Any
+    supply: Any
+    scanner: Any
+    thermometer: Any
+    refs: Mapping[str, InstrumentRef] = field(default_factory=dict)
+
+    def by_role(self) -> dict[str, Any]:
+        return {r: getattr(self, r) for r in ROLES}
+
+    def record(self) -> dict:
+        """run.json 'instruments': resource, profile and *IDN? answer per role."""
+        out = {}
+        for role, drv in self.by_role().items():
+            ref = self.refs.get(role)
+            out[role] = {
+                "resource": ref.resource if ref else getattr(drv, "resource", None),
+                "profile": ref.profile if ref else None,
+                "idn": getattr(drv, "idn", None),
+            }
+        return out
+
+
+@contextlib.contextmanager
+def open_instruments(bench: BenchFile, timeout_s: float | None = None):
+    """Open and identify all four instruments; bad address or silence -> UserError."""
+    import pyvisa
+
+    from instruments.drivers import BiasSupply, LCRMeter, Scanner, Thermometer
+
+    classes = {"meter": LCRMeter, "supply": BiasSupply, "scanner": Scanner, "thermometer": Thermometer}
+    with contextlib.ExitStack() as stack:
+        try:
+            rm = pyvisa.ResourceManager("@py")
+        except Exception as exc:  # pragma: no cover - installation problem
+            raise UserError(f"cannot start the pyvisa-py backend ({exc}); check the installation") from None
+        stack.callback(_close_quietly, rm)
+        opened: dict[str, Any] = {}
+        for role in ROLES:
+            ref = bench.instruments[role]
+            tmo = ref.timeout_s if ref.timeout_s is not None else timeout_s
+            kwargs = {"profile": ref.profile, "rm": rm, "role": role}
+            if tmo is not None:
+                kwargs["timeout_s"] = tmo
+            try:
+                drv = classes[role](ref.resource, **kwargs)
+                opened[role] = stack.enter_context(drv)
+            except UserError:
+                raise
+            except Exception as exc:
+                text = _one_line(exc)
+                hint = "" if "check" in text else "; check the address, that the instrument is on and answers, and the profile"
+                raise UserError(f"{bench.source}: [instrument.{role}]: {text}{hint}") from None
+        yield Instruments(refs=dict(bench.instruments), **opened)
+
+
+def _close_quietly(obj) -> None:
+    try:
+        obj.close()
+    except Exception:
+        pass
+
+
+def _one_line(exc: BaseException) -> str:
+    text = " ".join(str(exc).split())
+    return text or type(exc).__name__

@@ -1,0 +1,165 @@
+"""The bias-sweep engine: ramp, dwell, read, log, one point at a time.
+
+For each sample: select its channel (break before make), start at 0 V with the output on,
+ramp to each planned bias at the plan's rate on the run's clock, dwell (a policy object),
+read the meter n_readings times, read back the supply, the AC level across the part and the
+temperature, and write the point to disk before the next step (benchkit/sweep/point.py). At
+the end of a sample ramp to 0 V; at the end of the run switch the output off and wait for
+the parts to discharge. Adaptive samples add passes (passes.py); link recoveries are
+recorded (recovery.py). Starting, resuming and the shutdown that always ends at 0 V with the
+output off are in run.py.
+"""
+
+from __future__ import annotations
+
+from benchkit.sweep.dwell import dwell_policy
+from benchkit.sweep.passes import AdaptivePasses
+from benchkit.sweep.plan import Plan, PlannedPoint, SampleSweep
+from benchkit.sweep.point import PointMeasurement
+from benchkit.sweep.recovery import LinkRecoveries
+from benchkit.sweep.runlog import RunLog, join_flags
+from benchkit.sweep.safety import Guarded, GuardedClock, SignalGuard
+
+
+class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
+    """The loop over samples and points; each point, pass and recovery by its own module."""
+
+    def __init__(self, inst, sweeps, plan: Plan, log: RunLog, clock, progress, guard, done_rows):
+        self.plan, self.sweeps, self.log, self.progress, self.guard = plan, sweeps, log, progress, guard
+        self.clock = clock
+        self.gclock = GuardedClock(clock, guard) if isinstance(guard, SignalGuard) else clock
+        wrap = (lambda x: Guarded(x, guard)) if isinstance(guard, SignalGuard) else (lambda x: x)
+        self.meter = wrap(inst.meter)
+        self.supply = wrap(inst.supply)
+        self.scanner = wrap(inst.scanner)
+        self.thermo = wrap(inst.thermometer)
+        self.policy = dwell_policy(plan)
+        self.done = len(done_rows)
+        self.resumed = bool(done_rows)
+        self.n_new = 0
+        self.total = sum(len(sw.points) for sw in sweeps)
+        self.t0 = clock.now()
+        self.t_offset = float(done_rows[-1]["t_s"] or 0.0) if done_rows else 0.0
+        self.current: PlannedPoint | None = None
+        self.output_on = False
+        self.output_off_done = False  # the normal end was reached: all points, output off
+        self._measured: dict[str, list] = {}  # sample_id -> rows so far (adaptive planning)
+        for r in done_rows:
+            self._measured.setdefault(r["sample_id"], []).append(r)
+        self._ref_temp = None
+        self._raw = {"meter": inst.meter, "supply": inst.supply, "scanner": inst.scanner,
+                     "thermometer": inst.thermometer}
+        self._links = self._link_counts()
+
+    def t_s(self) -> float:
+        return self.t_offset + (self.clock.now() - self.t0)
+
+    def where(self) -> str:
+        p = self.current
+        if p is None:
+            return f"after {self.done} of {self.total} points"
+        return (f"at sample {p.sample_id} repeat {p.repeat} step {p.step_index} "
+                f"({p.branch}, {p.bias_V:g} V); {self.done} of {self.total} points saved")
+
+    # -- the sweep -----------------------------------------------------------
+    def run(self) -> None:
+        if self.progress is not None:
+            self.progress.start(self.total, self.done)
+        planned = [(sw, p) for sw in self.sweeps for p in sw.points]
+        todo = planned[self.done:]
+        s = self.supply
+        if s.output_on:  # e.g. left on by a killed run: never jump a charged part to 0 V
+            s.ramp_to(0.0, self.plan.max_ramp_V_per_s, self.gclock)
+        s.output_on = False
+        s.voltage_V = 0.0
+        s.current_limit_A = self.plan.current_limit_A
+        first_in_session = True
+        for sw in self.sweeps:
+            pts = [p for (w, p) in todo if w is sw]
+            if not pts and (sw.adaptive is None or sw.adaptive.stopped):
+                if sw.adaptive is not None:
+                    self._adaptive_record(sw)
+                continue
+            self._start_sample(sw)
+            if first_in_session and self.resumed and pts and pts[0] is not sw.points[0]:
+                self._approach(sw, pts[0])
+            self._ref_temp = None
+            for p in pts:
+                mid_sample = p is not sw.points[0]
+                self._take_point(sw, p, resumed=first_in_session and self.resumed and mid_sample)
+                first_in_session = False
+            if sw.adaptive is not None:
+                self._adaptive_passes(sw, first_in_session and self.resumed)
+                first_in_session = False
+            self.current = None
+            self.supply.ramp_to(0.0, self.plan.max_ramp_V_per_s, self.gclock)
+            self._note_recoveries()
+            # the meter and thermometer are only queried while measuring: read what their error
+            # queues collected (SCPI SYSTem:ERRor?) before trusting the next sample to them
+            for drv in (self.meter, self.thermo):
+                drv.check_errors(after=f"measuring sample {sw.sample.sample_id}")
+            self.log.event(self.t_s(), "sample_end", sample_id=sw.sample.sample_id)
+            self.log.save()
+
+    def _take_point(self, sw: SampleSweep, p: PlannedPoint, resumed: bool) -> dict:
+        """Measure one planned point and put its row on disk."""
+        self.current = p
+        if sw.adaptive is not None:
+            self._lead_in(sw, p)
+        row = self._measure_point(sw, p, resumed=resumed)
+        if self._ref_temp is None:
+            self._ref_temp = row["temp_C"]
+        elif row["temp_C"] is not None and \
+                abs(row["temp_C"] - self._ref_temp) > self.plan.limits["temp_tolerance_C"]:
+            row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
+        with self.guard.transaction():  # a row is written whole or not at all
+            self.log.append_point(row)
+        self._measured.setdefault(p.sample_id, []).append(row)
+        self.done += 1
+        self.n_new += 1
+        if self.progress is not None:
+            c = row["C_F"]
+            ctext = "overload" if c is None else f"C = {c:.5g} F"
+            self.progress.point(self.done, f"{p.sample_id} {p.branch} {p.bias_V:+g} V: {ctext}")
+        return row
+
+    def _start_sample(self, sw: SampleSweep) -> None:
+        c = sw.conditions
+        self.scanner.select(sw.sample.channel)  # opens all, then closes one: break before make
+        self.meter.function = c.function
+        self.meter.freq_Hz = c.freq_Hz
+        self.meter.ac_level_Vrms = c.ac_level_Vrms
+        self.meter.check_errors()
+        if not self.output_on:
+            self.supply.voltage_V = 0.0
+            self.supply.output_on = True
+            self.output_on = True
+        if hasattr(self.policy, "start_sample"):  # settle detection: the sample's own C0
+            self.policy.start_sample()
+        self.log.event(self.t_s(), "sample_start", sample_id=sw.sample.sample_id, channel=sw.sample.channel)
+        self.log.save()
+
+    def _approach(self, sw: SampleSweep, first: PlannedPoint) -> None:
+        """After a resume, reach a falling-branch point from above, as the plan would have."""
+        if first.branch != "falling":
+            return
+        if sw.adaptive is not None and first.repeat >= 2:
+            return  # _lead_in turns at the top first, as the pass would have
+        before = [p for p in sw.points if p.repeat == first.repeat and p.step_index < first.step_index]
+        peak = next((p for p in reversed(before) if p.branch == "rising"), None)
+        if peak is None:
+            return
+        self.log.event(self.t_s(), "resume_approach", sample_id=sw.sample.sample_id, via_V=peak.bias_V)
+        self.supply.ramp_to(peak.bias_V, self.plan.max_ramp_V_per_s, self.gclock)
+
+    def finish(self, wait_s: float) -> None:
+        """Normal end: 0 V, output off, then the discharge wait before anyone handles parts."""
+        self.current = None
+        self.supply.ramp_to(0.0, self.plan.max_ramp_V_per_s, self.gclock)
+        self.supply.output_on = False
+        self.output_on = False
+        self.output_off_done = True
+        self.log.event(self.t_s(), "output_off", discharge_wait_s=wait_s)
+        if wait_s > 0:
+            self.gclock.sleep(wait_s)
+        self.scanner.open_all()

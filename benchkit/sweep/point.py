@@ -1,0 +1,129 @@
+"""One bias point: reach it, dwell by the policy, read the meter, read back the supply, the
+level across the part and the temperature, and build the row that goes into points.csv."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from benchkit.sweep.plan import Plan, PlannedPoint, SampleSweep
+from benchkit.sweep.runlog import join_flags, utc_now
+
+CURRENT_LIMIT_FRACTION = 0.98  # |I| at or above this share of the limit: the supply is limiting
+
+
+class PointMeasurement:
+    """The engine's per-point job (mixed into benchkit.sweep.engine.SweepEngine)."""
+
+    def _measure_point(self, sw: SampleSweep, p: PlannedPoint, resumed: bool) -> dict:
+        plan, cond = self.plan, sw.conditions
+        self._note_recoveries()  # before this point (configuring, ramping down): events only
+        self.supply.ramp_to(p.bias_V, plan.max_ramp_V_per_s, self.gclock)
+        t_reached = self.clock.now()
+        settle = self.policy.wait(self.gclock, lambda: self._probe(cond))
+        values, times, overload = [], [], False
+        for _ in range(plan.n_readings):
+            r = self.meter.measure()
+            t = self.clock.now()
+            if r.overload:
+                overload = True
+                continue
+            values.append(_convert(r.primary, r.secondary, cond.function, cond.freq_Hz))
+            times.append(t)
+        t_first = times[0] if times else self.clock.now()
+        ac_dut = self.meter.ac_dut_Vrms
+        v_meas = self.supply.measured_voltage_V
+        i_meas = self.supply.measured_current_A
+        temp = self.thermo.temperature_C
+        flags = []
+        if abs(v_meas - p.bias_V) > plan.limits["bias_tolerance_V"]:
+            flags.append("bias_readback")
+        if _in_current_limit(p.bias_V, v_meas, i_meas, plan):
+            flags.append("current_limit")
+        if overload:
+            flags.append("overload")
+        if resumed:
+            flags.append("resumed")
+        if self._note_recoveries():
+            flags.append("retried")
+        flags += list(getattr(settle, "flags", ()))  # e.g. max_dwell from settle detection
+        arr = np.array(values) if values else np.empty((0, 3))
+        C = float(arr[:, 0].mean()) if len(arr) else None
+        C_std = float(arr[:, 0].std(ddof=1)) if len(arr) >= 2 else None
+        drift = None
+        if len(arr) >= 2 and times[-1] > times[0] and C:
+            slope = np.polyfit(np.array(times) - times[0], arr[:, 0], 1)[0]
+            drift = float(100.0 * slope / C)
+        return {
+            "run_id": self.log.meta["run_id"],
+            "sample_id": p.sample_id,
+            "part_id": sw.sample.part_id,
+            "channel": sw.sample.channel,
+            "step_index": p.step_index,
+            "branch": p.branch,
+            "repeat": p.repeat,
+            "bias_set_V": p.bias_V,
+            "bias_meas_V": float(v_meas),
+            "bias_current_A": float(i_meas),
+            "function": cond.function,
+            "freq_Hz": cond.freq_Hz,
+            "ac_level_set_Vrms": cond.ac_level_Vrms,
+            "ac_level_dut_Vrms": float(ac_dut),
+            "C_F": C,
+            "C_std_F": C_std,
+            "D": float(arr[:, 1].mean()) if len(arr) else None,
+            "Rs_ohm": float(arr[:, 2].mean()) if len(arr) else None,
+            "n_readings": len(arr),
+            "temp_C": float(temp),
+            "t_s": self.t_offset + (t_first - self.t0),
+            "dwell_s": self.policy.dwell_s,
+            "settle_s": float(settle if settle is not None else t_first - t_reached),
+            # a watching policy's drift (over its window, at the end of the dwell) when it has
+            # one; else the slope of this point's own readings
+            "drift_pct_per_s": (float(settle.drift_pct_per_s)
+                                if getattr(settle, "drift_pct_per_s", None) is not None else drift),
+            "flags": join_flags(flags),
+            "utc": utc_now(),
+        }
+
+    def _probe(self, cond) -> float:
+        r = self.meter.measure()
+        if r.overload:
+            return math.nan  # a dwell policy leaves it out
+        return _convert(r.primary, r.secondary, cond.function, cond.freq_Hz)[0]
+
+
+
+def _in_current_limit(set_V: float, meas_V: float, meas_A: float, plan: Plan) -> bool:
+    """At the programmed limit, or sagging below the set voltage while sourcing current.
+
+    A CV/CC bench supply holds its set voltage until the load asks for more than the limit;
+    only then (constant-current mode) does the terminal voltage fall below the set value
+    [common practice: CV/CC crossover of a bench supply].
+    """
+    if abs(meas_A) >= CURRENT_LIMIT_FRACTION * plan.current_limit_A:
+        return True
+    sag = abs(set_V) - abs(meas_V)
+    sourcing = meas_A * set_V > 0
+    return sourcing and sag > plan.limits["bias_tolerance_V"]
+
+
+def _convert(primary: float, secondary: float, function: str, freq_Hz: float) -> tuple[float, float, float]:
+    """(C_F, D, Rs_ohm) from a meter reading of the given function.
+
+    D = w*Cs*Rs and Cp = Cs/(1 + D^2) [published: standard impedance-measurement handbook
+    relations]; C_F is the primary quantity of the function (Cp for CPD, Cs otherwise).
+    """
+    w = 2.0 * math.pi * freq_Hz
+    if function == "CPD":
+        Cp, D = primary, secondary
+        Cs = Cp * (1.0 + D * D)
+        return Cp, D, D / (w * Cs)
+    if function == "CSD":
+        Cs, D = primary, secondary
+        return Cs, D, D / (w * Cs)
+    if function == "CSRS":
+        Cs, Rs = primary, secondary
+        return Cs, w * Cs * Rs, Rs
+    raise ValueError(f"unknown meter function {function!r}")

@@ -1,0 +1,49 @@
+"""Recovery bookkeeping: what each instrument link recovered from (the drivers retry,
+resynchronise and reconnect), recorded as events and as the `retried` flag of a point."""
+
+from __future__ import annotations
+
+
+class LinkRecoveries:
+    """The engine's recovery job (mixed into benchkit.sweep.engine.SweepEngine)."""
+
+    RETRY_COUNTERS = ("timeouts", "garbled", "link_errors", "reconnects")
+
+    def _link_counts(self) -> dict:
+        out = {}
+        for role, drv in self._raw.items():
+            session = getattr(drv, "session", None)
+            counters = getattr(session, "counters", None)
+            if counters is not None:
+                out[role] = (dict(counters), list(getattr(session, "events", ())))
+        return out
+
+    def _note_recoveries(self) -> bool:
+        """Log what each link recovered from since the last look (event link_recovered).
+
+        After the supply's link was reopened its output must still be on: a supply that
+        restarted comes back with its output off, and measuring on would log 0 V points.
+        """
+        now = self._link_counts()
+        seen = False
+        for role, (counts, events) in now.items():
+            before, old_events = self._links.get(role, ({}, []))
+            delta = {k: counts.get(k, 0) - before.get(k, 0) for k in self.RETRY_COUNTERS
+                     if counts.get(k, 0) > before.get(k, 0)}
+            if not delta:
+                continue
+            seen = True
+            new = events[len(old_events):] if len(events) > len(old_events) else events[-5:]
+            self.log.event(self.t_s(), "link_recovered", role=role, at=self.where(), **delta,
+                           detail=new[-10:])
+            if role == "supply" and delta.get("reconnects") and self.output_on and not self.supply.output_on:
+                from instruments.drivers.errors import InstrumentError
+
+                res = getattr(self._raw["supply"], "resource", "?")
+                raise InstrumentError(
+                    f"supply ({res}): after reconnecting, its output reads off although the sweep "
+                    "had it on (the supply may have restarted, or an interlock tripped); the sweep "
+                    "stops here: check the supply, its mains and interlock, then resume",
+                    role="supply", resource=res, command="OUTPut?")
+        self._links = now
+        return seen

@@ -1,0 +1,284 @@
+"""The run directory: points.csv that survives a crash, and run.json that says what happened.
+
+Every point is flushed and fsync'ed before the next bias step, so a power cut or kill -9
+loses at most the point in progress (a trailing partial line, dropped on resume). run.json is
+replaced atomically at the start (status running), on every status change and at the end
+(complete with the sha256 of points.csv, or aborted with the reason). The columns are the
+interface with the fitting and verification code (DEVELOPERS.md, "File formats": run directory).
+"""
+
+from __future__ import annotations
+
+import csv
+import fcntl
+import hashlib
+import io
+import json
+import math
+import os
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, Iterable, Mapping
+
+from benchkit.atomic import write_text_atomic
+from benchkit.errors import UserError
+
+RUN_FORMAT = "benchkit-run"
+RUN_VERSION = 1
+RUN_FILE = "run.json"
+POINTS_FILE = "points.csv"
+
+COLUMNS = (
+    "run_id", "sample_id", "part_id", "channel", "step_index", "branch", "repeat",
+    "bias_set_V", "bias_meas_V", "bias_current_A", "function", "freq_Hz",
+    "ac_level_set_Vrms", "ac_level_dut_Vrms", "C_F", "C_std_F", "D", "Rs_ohm", "n_readings",
+    "temp_C", "t_s", "dwell_s", "settle_s", "drift_pct_per_s", "flags", "utc",
+)
+
+# The one list of words the flags column may hold (";"-joined in a row).
+FLAGS = {
+    "bias_readback": "|bias_meas_V - bias_set_V| exceeded limits.bias_tolerance_V",
+    "current_limit": "the supply was limiting current (at its programmed limit, or its voltage sagging "
+                     "below the set value while sourcing): the part saw less than the set bias",
+    "overload": "the meter reported overload (9.9E37) on at least one reading; those readings are left out",
+    "temp_change": "temperature moved more than limits.temp_tolerance_C since the sample's first point",
+    "resumed": "first point measured after the run was resumed; the part's bias history was restarted",
+    "max_dwell": "settle detection reached settle.max_dwell_s before its settle rule was met "
+                 "(drift rate or predicted residual): the point was read while the part may still drift",
+    "retried": "an instrument exchange of this point needed a retry (no reply, a garbled or late reply, "
+               "or a reconnect after a dropped link); run.json events 'link_recovered' say which",
+}
+
+
+def join_flags(words: Iterable[str]) -> str:
+    """The flags field for a row: known words only, each once, in the order raised."""
+    out: list[str] = []
+    for w in words:
+        if w not in FLAGS:
+            raise ValueError(f"flag {w!r} is not in benchkit.sweep.runlog.FLAGS")
+        if w not in out:
+            out.append(w)
+    return ";".join(out)
+
+
+class RunFileError(Exception):
+    """points.csv or run.json could not be written (disk full, read-only, I/O error).
+
+    Raised mid-run: the sweep treats it as a reason to stop (bias off first), not as a bug.
+    """
+
+
+def _write_problem(path: Path, exc: OSError) -> str:
+    return (f"cannot write {path} ({exc.strerror or exc}); the disk may be full or read-only: "
+            "free space or fix the folder")
+
+
+def utc_now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+def format_value(v: Any) -> str:
+    """CSV text of one field: empty for unknown (None/NaN), full precision for floats."""
+    if v is None:
+        return ""
+    if isinstance(v, bool):
+        return "1" if v else "0"
+    if isinstance(v, float):
+        return "" if not math.isfinite(v) else repr(v)
+    return str(v)
+
+
+def row_line(row: Mapping[str, Any]) -> str:
+    missing = [c for c in COLUMNS if c not in row]
+    extra = [k for k in row if k not in COLUMNS]
+    if missing or extra:
+        raise ValueError(f"points row: missing {missing}, unknown {extra}")
+    buf = io.StringIO()
+    csv.writer(buf, lineterminator="\n").writerow([format_value(row[c]) for c in COLUMNS])
+    return buf.getvalue()
+
+
+def sha256_file(path: str | os.PathLike) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 16), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def read_points(run_dir: str | os.PathLike) -> tuple[list[dict[str, str]], int]:
+    """The complete rows of points.csv and the byte length they occupy (a partial tail excluded)."""
+    path = Path(run_dir) / POINTS_FILE
+    try:
+        data = path.read_bytes()
+    except FileNotFoundError:
+        raise UserError(f"{path}: not found; is {run_dir} a run directory?") from None
+    end = data.rfind(b"\n") + 1  # 0 when not even the header is complete
+    try:
+        text = data[:end].decode("utf-8", errors="strict")
+        lines = list(csv.reader(io.StringIO(text, newline="")))
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        raise UserError(f"{path}: line {line}: not UTF-8 text; the file is damaged or not from benchkit") from None
+    except csv.Error as exc:
+        raise UserError(f"{path}: not a readable CSV file ({exc}); the file is damaged or not from benchkit") from None
+    if not lines or tuple(lines[0]) != COLUMNS:
+        raise UserError(f"{path}: header is not the benchkit points header; the file is damaged or not from benchkit")
+    rows = []
+    for n, fields in enumerate(lines[1:], start=2):
+        if len(fields) != len(COLUMNS):
+            raise UserError(f"{path}: line {n} has {len(fields)} fields, expected {len(COLUMNS)}; the file was edited or damaged")
+        rows.append(dict(zip(COLUMNS, fields)))
+    return rows, end
+
+
+def read_run(run_dir: str | os.PathLike) -> dict:
+    """run.json of a run directory, checked to be one."""
+    path = Path(run_dir) / RUN_FILE
+    try:
+        meta = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise UserError(f"{path}: not found; give the directory a 'benchkit measure --out' created") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise UserError(f"{path}: unreadable ({exc}); the run directory is damaged") from None
+    except RecursionError:  # json nests deeper than Python recurses: not a run record either
+        raise UserError(f"{path}: unreadable (nested too deeply to be a run record); the run directory is damaged") from None
+    if not isinstance(meta, dict) or meta.get("format") != RUN_FORMAT or meta.get("version") != RUN_VERSION:
+        raise UserError(f"{path}: not a {RUN_FORMAT} version {RUN_VERSION} file")
+    return meta
+
+
+class RunLog:
+    """Owns one run directory while a sweep writes into it (an exclusive lock on points.csv)."""
+
+    def __init__(self, run_dir: Path, meta: dict, fh, rows: list[dict[str, str]]):
+        self.dir = run_dir
+        self.meta = meta
+        self._fh = fh
+        self.rows = rows  # rows already in points.csv before this session
+
+    # -- opening -------------------------------------------------------------
+    @classmethod
+    def create(cls, run_dir: str | os.PathLike, meta: dict) -> "RunLog":
+        """New run directory with the header and run.json (status running)."""
+        d = Path(run_dir)
+        if d.exists() and (not d.is_dir() or any(d.iterdir())):
+            raise UserError(f"{d}: already exists and is not empty; choose a new --out, or --resume {d}")
+        created = not d.exists()
+        fh = None
+        try:
+            d.mkdir(parents=True, exist_ok=True)
+            fh = open(d / POINTS_FILE, "a+", encoding="utf-8", newline="")
+            cls._lock(fh, d)
+            log = cls(d, meta, fh, [])
+            log._append_bytes((",".join(COLUMNS) + "\n").encode("utf-8"))
+            log.save()
+        except (OSError, RunFileError) as exc:
+            # nothing half written: take back what was made, then one line for the operator
+            if fh is not None:
+                fh.close()
+                for name in (POINTS_FILE, RUN_FILE):
+                    try:
+                        (d / name).unlink()
+                    except OSError:
+                        pass
+            if created:
+                try:
+                    d.rmdir()
+                except OSError:
+                    pass
+            why = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+            raise UserError(f"{d}: cannot create the run directory ({why}); choose an --out "
+                            "on a disk with free space, in a folder you can write") from None
+        _fsync_dir(d)
+        return log
+
+    @classmethod
+    def reopen(cls, run_dir: str | os.PathLike) -> "RunLog":
+        """An interrupted run for resume: drops a trailing partial line of points.csv."""
+        d = Path(run_dir)
+        meta = read_run(d)
+        path = d / POINTS_FILE
+        try:
+            fh = open(path, "r+", encoding="utf-8", newline="")
+        except FileNotFoundError:
+            raise UserError(f"{path}: not found; is {d} a run directory?") from None
+        cls._lock(fh, d)
+        rows, end = read_points(d)
+        if path.stat().st_size != end:
+            with open(path, "r+b") as raw:
+                raw.truncate(end)
+                raw.flush()
+                os.fsync(raw.fileno())
+        fh.seek(0, os.SEEK_END)
+        return cls(d, meta, fh, rows)
+
+    @staticmethod
+    def _lock(fh, d: Path) -> None:
+        try:
+            fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            fh.close()
+            raise UserError(f"{d}: another benchkit process is writing this run; wait for it or stop it first") from None
+
+    # -- writing -------------------------------------------------------------
+    def append_point(self, row: Mapping[str, Any]) -> None:
+        """One row, on disk (fsync) before this returns; RunFileError if it cannot be."""
+        self._append_bytes(row_line(row).encode("utf-8"))
+
+    def _append_bytes(self, data: bytes) -> None:
+        """Write straight to the file (no buffer that could be flushed half later), fsync;
+        on failure cut the file back, so it holds whole confirmed rows only."""
+        fd = self._fh.fileno()
+        start = os.lseek(fd, 0, os.SEEK_END)
+        try:
+            view = memoryview(data)
+            while view:
+                view = view[os.write(fd, view):]
+            os.fsync(fd)
+        except OSError as exc:
+            try:
+                os.ftruncate(fd, start)
+            except OSError:
+                pass  # a partial last line is dropped when the run is resumed
+            raise RunFileError(_write_problem(self.dir / POINTS_FILE, exc)) from None
+
+    def event(self, t_s: float | None, kind: str, **fields: Any) -> None:
+        entry = {"utc": utc_now(), "t_s": t_s, "event": kind}
+        entry.update(fields)
+        self.meta.setdefault("events", []).append(entry)
+
+    def set_status(self, status: str, reason: str | None = None) -> None:
+        self.meta["status"] = status
+        self.meta["reason"] = reason
+        if status in ("complete", "aborted"):
+            self.meta["end_utc"] = utc_now()
+            self.meta["points_sha256"] = sha256_file(self.dir / POINTS_FILE) if status == "complete" else None
+        else:
+            self.meta["end_utc"] = None
+            self.meta["points_sha256"] = None
+        self.save()
+
+    def save(self) -> None:
+        try:
+            write_text_atomic(self.dir / RUN_FILE, json.dumps(self.meta, indent=2, allow_nan=False) + "\n")
+        except UserError as exc:  # benchkit.atomic's one line: disk full, read-only, I/O error
+            raise RunFileError(str(exc)) from None
+
+    def close(self) -> None:
+        if self._fh is not None and not self._fh.closed:
+            self._fh.close()  # releases the lock
+
+
+def _fsync_dir(d: Path) -> None:
+    """Make the new directory entries durable too."""
+    try:
+        fd = os.open(d, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)

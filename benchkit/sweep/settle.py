@@ -1,0 +1,329 @@
+"""Settle detection: after a bias step, keep reading until the drift has died down.
+
+Why: after a bias step a class-2 part's reading keeps moving for seconds to minutes
+(dielectric absorption and relaxation, X7R about 2-2.5 %) [common practice; fast reversible
+drop then a slower one: T. Tsurumi et al., J. Electroceram. 21, 17 (2008)]. A fixed dwell is
+either too short for a slow part (the point is read while still drifting) or wastes bench
+time on a fast one. This policy watches the part and goes on once it has settled, and says
+so in the points file (settle_s, drift_pct_per_s, and the flag "max_dwell" when it gave up).
+
+Estimator (stated, as the plan's threshold depends on it). Readings are taken back to back
+(or `read_interval_s` apart). The drift is the ordinary least-squares slope of C against
+time over a sliding window of the last `window_s` seconds of readings, divided by the
+window's mean C, in percent per second; its standard error comes from the residual scatter
+of that fit (scipy.stats.linregress). Averaging over the window is what makes it robust to
+meter noise: with N readings spread evenly over W seconds and a relative scatter s of one
+reading the standard error is about s*sqrt(12/N)/W. Readings that are not finite or not
+positive (an overload answer, a dropped reading) are left out.
+
+Rule. The part counts as settled at the first reading where
+  - at least `min_dwell_s` has passed since the bias was reached,
+  - the readings span at least `window_s` (at least MIN_WINDOW_READINGS of them), and
+  - |drift| + DRIFT_MARGIN_SE * u(drift) <= max_drift_pct_per_s,
+so a window that only looks flat because of noise does not count. If that has not happened
+by `max_dwell_s`, it stops there and the point carries the flag "max_dwell" (the reading is
+taken anyway; whoever fits it can see it was not shown to be settled). The window's slope is
+the mean drift over the window, so it lags the drift at the end of the window (for an
+exponential approach by exp(window_s/(2*tau))): the rule errs on the patient side.
+
+Residual rule (`max_residual_pct_of_reading`). A drift threshold is a poor stand-in for the
+accuracy a plan wants: for an exponential approach the error still left when the drift is r
+is about r*tau [derived: C = C_inf + A*exp(-t/tau) gives C - C_inf = -tau*dC/dt], so one
+threshold is too strict for a fast dielectric and too lax for a slow one. This rule fits
+C(t) = C_inf + A*exp(-(t - t_last)/tau) to the readings of the dwell itself (those from
+`min_dwell_s` on, when the part has charged through the fixture) and bounds the residual
+|A| = |C(t_last) - C_inf| (the distance of the latest reading from where it is going):
+for each tau on a log grid from RESIDUAL_TAU_MIN_FRAC of the readings' span up to
+`max_tau_s` the model is linear in (C_inf, A), so it is an ordinary least-squares fit; the
+taus the data do not exclude (sum of squares within RESIDUAL_PROFILE_DSSR variances of one
+reading of the best, a profile-likelihood interval of about three standard errors; the
+variance is the larger of the fit's and the successive-difference estimate) are all kept,
+and the bound is the largest |A| + RESIDUAL_MARGIN_SE*u(A) among them, in percent of C_inf. A flat
+window of noise gives a small bound; a linear drift that the window cannot tell from a slow
+exponential gives slope*max_tau_s (the patient side). The part counts as settled when that
+bound is within the threshold (and, if the plan also gives max_drift_pct_per_s, the drift
+rule holds too). The recorded reading is still the mean of the meter readings taken after
+the dwell: the fit only decides when to stop, it never replaces a measurement.
+
+`max_residual_pct_of_C0` is the same bound in percent of the sample's C0 instead of the
+reading: the first settled reading of the sample (its 0 V point in an adaptive plan, which
+starts at 0 V; the engine calls start_sample() before each sample). A C(V) target is usually
+set in percent of C0, and under bias the reading may be a tenth of C0: there a bound in
+percent of the reading asks ten times more than the target needs. Until the first point has
+settled the reading itself stands in for C0.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+from scipy import stats
+
+MIN_WINDOW_READINGS = 5
+DRIFT_MARGIN_SE = 1.0  # standard errors of the drift estimate added before comparing
+MAX_DWELL_FLAG = "max_dwell"
+# A probe that took no clock time (a virtual clock with no simulated meter behind it) would
+# never reach the window or the maximum dwell: then the policy sleeps this long between reads.
+IDLE_READ_INTERVAL_S = 0.1
+MIN_FIT_READINGS = 8  # the residual fit has 3 parameters; a few more to see the noise
+RESIDUAL_MARGIN_SE = 2.0  # standard errors of the fitted residual added before comparing
+RESIDUAL_PROFILE_DSSR = 9.0  # taus kept: SSR <= SSR_min + this * variance (~3 sigma: the
+# rule is checked at every reading, so a 2-sigma interval would be fooled now and then)
+RESIDUAL_TAU_MIN_FRAC = 0.05  # shortest tau tried, as a fraction of the readings' span
+RESIDUAL_TAU_GRID = 40
+
+
+@dataclass(frozen=True)
+class DriftEstimate:
+    """Drift over one window: percent of the mean reading per second, and its standard error."""
+
+    drift_pct_per_s: float
+    u_drift_pct_per_s: float
+    n_readings: int
+    span_s: float
+    mean_C_F: float
+
+
+def window_drift(t_s, C_F) -> DriftEstimate:
+    """Least-squares slope of C(t) over the given readings, in percent of mean C per second.
+
+    Needs at least 3 readings at 2 or more distinct times (the standard error needs a
+    residual degree of freedom). ValueError otherwise.
+    """
+    t = np.asarray(t_s, dtype=float)
+    c = np.asarray(C_F, dtype=float)
+    if t.size != c.size or t.size < 3 or np.ptp(t) <= 0:
+        raise ValueError("a drift estimate needs 3 or more readings spread over time")
+    fit = stats.linregress(t - t[0], c)
+    mean = float(np.mean(c))
+    scale = 100.0 / mean
+    return DriftEstimate(float(fit.slope) * scale, float(fit.stderr) * scale, int(t.size),
+                         float(np.ptp(t)), mean)
+
+
+@dataclass(frozen=True)
+class ResidualEstimate:
+    """Bound on how far the latest reading still is from where the reading is going."""
+
+    residual_pct: float  # bound: |A| + margin*u(A), percent of C_inf, over the kept taus
+    tau_s: float  # best-fitting time constant
+    tau_hi_s: float  # longest tau the readings do not exclude
+    n_readings: int
+    span_s: float
+
+
+def relaxation_residual(t_s, C_F, max_tau_s: float) -> ResidualEstimate:
+    """Fit C = C_inf + A*exp(-(t - t_last)/tau) (see the module docstring); bound |A|/C_inf.
+
+    Needs MIN_FIT_READINGS readings spread over time; ValueError otherwise.
+    """
+    t = np.asarray(t_s, dtype=float)
+    c = np.asarray(C_F, dtype=float)
+    if t.size != c.size or t.size < MIN_FIT_READINGS or np.ptp(t) <= 0:
+        raise ValueError(f"a residual estimate needs {MIN_FIT_READINGS} or more readings "
+                         "spread over time")
+    span = float(np.ptp(t))
+    scale = float(np.mean(c))
+    y = c / scale - 1.0
+    dt = t[-1] - t  # >= 0: age of each reading relative to the latest
+    taus = np.geomspace(RESIDUAL_TAU_MIN_FRAC * span, max(max_tau_s, span), RESIDUAL_TAU_GRID)
+    rows = []
+    for tau in taus:
+        X = np.column_stack([np.ones_like(dt), np.exp(np.minimum(dt / tau, 700.0))])
+        coef, _, rank, _ = np.linalg.lstsq(X, y, rcond=None)
+        if rank < 2:
+            continue
+        r = y - X @ coef
+        ssr = float(r @ r)
+        try:
+            cov = np.linalg.inv(X.T @ X)
+        except np.linalg.LinAlgError:
+            continue
+        rows.append((tau, ssr, float(coef[0]), float(coef[1]), float(cov[1, 1])))
+    if not rows:
+        raise ValueError("a residual estimate needs readings spread over time")
+    dof = t.size - 3
+    ssr_min = min(r[1] for r in rows)
+    # the scatter of one reading: from the fit, or from successive differences (which a
+    # smooth drift hardly touches [published: J. von Neumann, Ann. Math. Stat. 12, 367
+    # (1941), mean square successive difference]), whichever is larger: a fit that happens
+    # to follow the noise must not make the profile look narrower than it is
+    var = max(ssr_min / dof, float(np.mean(np.diff(y) ** 2)) / 2.0, 1e-300)
+    kept = [r for r in rows if r[1] <= ssr_min + RESIDUAL_PROFILE_DSSR * var]
+    best = min(rows, key=lambda r: r[1])
+    bound = max(abs(A) + RESIDUAL_MARGIN_SE * math.sqrt(var * vA) for _, _, _, A, vA in kept)
+    c_inf = 1.0 + best[2]
+    return ResidualEstimate(100.0 * bound / c_inf, float(best[0]), float(max(r[0] for r in kept)),
+                            int(t.size), span)
+
+
+class SettleResult(float):
+    """The settle time in seconds (a float, so an engine that only wants the time gets it),
+    with the final drift estimate and whether the maximum dwell was hit."""
+
+    def __new__(cls, settle_s: float, drift: DriftEstimate | None, hit_max_dwell: bool,
+                n_readings: int):
+        obj = super().__new__(cls, settle_s)
+        obj.drift = drift
+        obj.hit_max_dwell = bool(hit_max_dwell)
+        obj.n_readings = int(n_readings)
+        return obj
+
+    @property
+    def settle_s(self) -> float:
+        return float(self)
+
+    @property
+    def drift_pct_per_s(self) -> float | None:
+        return None if self.drift is None else self.drift.drift_pct_per_s
+
+    @property
+    def flags(self) -> tuple[str, ...]:
+        return (MAX_DWELL_FLAG,) if self.hit_max_dwell else ()
+
+    def __repr__(self) -> str:
+        d = "unknown" if self.drift is None else f"{self.drift.drift_pct_per_s:+.4g} %/s"
+        return (f"SettleResult({float(self):.3f} s, drift {d}, "
+                f"{'max dwell hit' if self.hit_max_dwell else 'settled'})")
+
+
+class SettleDetector:
+    """Dwell policy "settle": wait until the drift is below a threshold, or the maximum dwell.
+
+    Used by the sweep engine like any dwell policy: `wait(clock, probe)` with probe() one
+    meter reading of C in farads. `dwell_s` is the longest it may wait (max_dwell_s).
+    """
+
+    name = "settle"
+
+    def __init__(self, max_drift_pct_per_s: float | None, max_dwell_s: float,
+                 min_dwell_s: float = 0.5, window_s: float = 2.0, read_interval_s: float = 0.0,
+                 max_residual_pct_of_reading: float | None = None, max_tau_s: float = 20.0,
+                 max_residual_pct_of_C0: float | None = None):
+        if (max_drift_pct_per_s is None and max_residual_pct_of_reading is None
+                and max_residual_pct_of_C0 is None):
+            raise ValueError("settle: give max_drift_pct_per_s, max_residual_pct_of_reading or "
+                             "max_residual_pct_of_C0")
+        checks = [("max_dwell_s", max_dwell_s), ("window_s", window_s), ("max_tau_s", max_tau_s)]
+        if max_drift_pct_per_s is not None:
+            checks.append(("max_drift_pct_per_s", max_drift_pct_per_s))
+        if max_residual_pct_of_reading is not None:
+            checks.append(("max_residual_pct_of_reading", max_residual_pct_of_reading))
+        if max_residual_pct_of_C0 is not None:
+            checks.append(("max_residual_pct_of_C0", max_residual_pct_of_C0))
+        for label, v in checks:
+            if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
+                raise ValueError(f"settle: {label} must be a positive number, got {v!r}")
+        for label, v in (("min_dwell_s", min_dwell_s), ("read_interval_s", read_interval_s)):
+            if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
+                raise ValueError(f"settle: {label} must be a number >= 0, got {v!r}")
+        if min_dwell_s > max_dwell_s:
+            raise ValueError(f"settle: min_dwell_s ({min_dwell_s:g} s) is above max_dwell_s "
+                             f"({max_dwell_s:g} s)")
+        self.max_drift_pct_per_s = (None if max_drift_pct_per_s is None
+                                    else float(max_drift_pct_per_s))
+        self.max_residual_pct_of_reading = (None if max_residual_pct_of_reading is None
+                                            else float(max_residual_pct_of_reading))
+        self.max_residual_pct_of_C0 = (None if max_residual_pct_of_C0 is None
+                                       else float(max_residual_pct_of_C0))
+        self.max_tau_s = float(max_tau_s)
+        self.reference_C_F: float | None = None  # the sample's C0 (start_sample, wait)
+        self.max_dwell_s = float(max_dwell_s)
+        self.min_dwell_s = float(min_dwell_s)
+        self.window_s = float(window_s)
+        self.read_interval_s = float(read_interval_s)
+        self.last: SettleResult | None = None
+        self.last_residual: ResidualEstimate | None = None
+
+    @property
+    def dwell_s(self) -> float:
+        return self.max_dwell_s
+
+    @classmethod
+    def from_plan(cls, settle: dict) -> "SettleDetector":
+        """From the plan's normalised [settle] table (benchkit.sweep.plan)."""
+        return cls(settle.get("max_drift_pct_per_s"), settle["max_dwell_s"],
+                   settle["min_dwell_s"], settle["window_s"], settle["read_interval_s"],
+                   settle.get("max_residual_pct_of_reading"), settle.get("max_tau_s", 20.0),
+                   settle.get("max_residual_pct_of_C0"))
+
+    def start_sample(self) -> None:
+        """A new sample: its first settled reading becomes the C0 of max_residual_pct_of_C0."""
+        self.reference_C_F = None
+
+    def settled(self, est: DriftEstimate) -> bool:
+        """The drift rule: the drift, one standard error to the bad side, is within the
+        threshold (always true when the plan gives no drift threshold)."""
+        if self.max_drift_pct_per_s is None:
+            return True
+        return (abs(est.drift_pct_per_s) + DRIFT_MARGIN_SE * est.u_drift_pct_per_s
+                <= self.max_drift_pct_per_s)
+
+    def residual_ok(self, times, values, t0: float) -> bool:
+        """The residual rule on the dwell's readings from min_dwell_s on (module docstring);
+        always true when the plan gives no residual threshold."""
+        if self.max_residual_pct_of_reading is None and self.max_residual_pct_of_C0 is None:
+            return True
+        lo = t0 + self.min_dwell_s - 1e-9
+        k = next((i for i, t in enumerate(times) if t >= lo), len(times))
+        t, c = times[k:], values[k:]
+        if len(t) < MIN_FIT_READINGS or t[-1] - t[0] < self.window_s * (1 - 1e-9):
+            return False
+        res = self.last_residual = relaxation_residual(t, c, self.max_tau_s)
+        if (self.max_residual_pct_of_reading is not None
+                and res.residual_pct > self.max_residual_pct_of_reading):
+            return False
+        if self.max_residual_pct_of_C0 is not None:
+            ref = self.reference_C_F or float(np.mean(c))
+            return res.residual_pct * float(np.mean(c)) / ref <= self.max_residual_pct_of_C0
+        return True
+
+    def wait(self, clock, probe: Callable[[], float]) -> SettleResult:
+        """Read until settled or max_dwell_s has passed since the call; return how long it took."""
+        t0 = clock.now()
+        self.last_residual = None
+        times: list[float] = []
+        values: list[float] = []
+        est: DriftEstimate | None = None
+        t_prev = t0
+        while True:
+            if clock.now() - t0 >= self.max_dwell_s:
+                self.last = SettleResult(clock.now() - t0, est, True, len(times))
+                return self.last
+            c = probe()
+            t = clock.now()
+            if c is not None and math.isfinite(c) and 0 < c < 1e30:  # 9.9E37 = overload
+                times.append(t)
+                values.append(float(c))
+            est = self._estimate(times, values, t) or est
+            if (est is not None and t - t0 >= self.min_dwell_s and self.settled(est)
+                    and self.residual_ok(times, values, t0)):
+                self.last = SettleResult(t - t0, est, False, len(times))
+                if self.reference_C_F is None:
+                    self.reference_C_F = est.mean_C_F
+                return self.last
+            if self.read_interval_s:
+                clock.sleep(self.read_interval_s)
+            elif t <= t_prev:
+                clock.sleep(IDLE_READ_INTERVAL_S)  # a reading that took no clock time
+            t_prev = t
+
+    def _estimate(self, times, values, now) -> DriftEstimate | None:
+        """Drift over the last window_s of readings, once the readings span a full window."""
+        if not times or times[-1] - times[0] < self.window_s * (1 - 1e-9):
+            return None
+        lo = now - self.window_s * (1 + 1e-9)
+        k = next(i for i, t in enumerate(times) if t >= lo)
+        k = max(0, min(k, len(times) - MIN_WINDOW_READINGS))
+        t, c = times[k:], values[k:]
+        if len(t) < MIN_WINDOW_READINGS or t[-1] - t[0] <= 0:
+            return None
+        return window_drift(t, c)
+
+
+__all__ = ["SettleDetector", "SettleResult", "DriftEstimate", "window_drift",
+           "ResidualEstimate", "relaxation_residual", "MIN_FIT_READINGS",
+           "MAX_DWELL_FLAG", "MIN_WINDOW_READINGS", "DRIFT_MARGIN_SE"]
