@@ -14,8 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from benchkit.catalogue.codes import REFERENCE_TEMP_C
-from benchkit.catalogue.codes import Tolerance, parse_class_code
+from benchkit.catalogue.codes import REFERENCE_TEMP_C, Tolerance, parse_class_code
 from benchkit.errors import UserError
 from benchkit.verify import aging
 
