@@ -10,6 +10,7 @@ A driver is not opened by its constructor: `with` (or open()) opens it, checks *
 """
 
 from .bias_supply import BiasSupply
+from .chamber import TemperatureChamber
 from .errors import (InstrumentError, InstrumentLinkError, InstrumentTimeout,
                      InvalidValueError, ProfileError, UnsafeCommandError)
 from .instrument import Instrument, check_profile_matches
@@ -21,12 +22,12 @@ from .setting import Setting
 from .thermometer import Thermometer
 
 DRIVERS = {"lcr-meter": LCRMeter, "dc-supply": BiasSupply, "scanner": Scanner,
-           "thermometer": Thermometer}
+           "thermometer": Thermometer, "chamber": TemperatureChamber}
 
 __all__ = [
     "BiasSupply", "DRIVERS", "FUNCTIONS", "Instrument", "InstrumentError",
     "InstrumentLinkError", "InstrumentTimeout", "InvalidValueError", "LCRMeter",
     "PROFILE_DIR", "Profile", "ProfileError", "Reading", "Scanner", "Session", "Setting",
-    "Thermometer", "UnsafeCommandError", "check_profile_matches", "load_profile",
+    "TemperatureChamber", "Thermometer", "UnsafeCommandError", "check_profile_matches", "load_profile",
     "normalise_resource", "shipped_profiles",
 ]

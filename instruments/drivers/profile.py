@@ -20,7 +20,7 @@ from .errors import ProfileError, UnsafeCommandError
 
 PROFILE_DIR = Path(__file__).resolve().parent / "profiles"
 
-KINDS = ("lcr-meter", "dc-supply", "scanner", "thermometer")
+KINDS = ("lcr-meter", "dc-supply", "scanner", "thermometer", "chamber")
 
 # IEEE 488.2 common commands and the SCPI-1999 error queue; overridable per profile.
 COMMON_DEFAULTS = {
@@ -345,7 +345,7 @@ def _setting(name: str, t: Any, where: str) -> SettingSpec:
     if unknown:
         raise ProfileError(f"{where}: unknown key(s) {', '.join(unknown)}; "
                            f"allowed: {', '.join(sorted(_SETTING_KEYS))}")
-    if not re.match(r"^[a-z][a-z0-9_]*(_[A-Za-z]+)?$", name):
+    if not re.match(r"^[a-z][a-z0-9_]*(_[A-Za-z]+(_per_[a-z]+)?)?$", name):
         raise ProfileError(f"{where}: setting names are snake_case with a unit suffix "
                            "(freq_Hz, voltage_V)")
     typ = t.get("type")

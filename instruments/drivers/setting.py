@@ -19,7 +19,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from .profile import SettingSpec
 
 # SI units a setting name may end with (the unit suffix convention of the whole project).
-UNITS = ("Hz", "V", "Vrms", "A", "C", "s", "ohm", "F", "W")
+UNITS = ("Hz", "V", "Vrms", "A", "C", "s", "ohm", "F", "W", "C_per_s")
 
 _DEFAULT_FLOAT_FORMAT = ".12g"
 

@@ -71,7 +71,8 @@ def documented_headers() -> dict[str, list[tuple[str, bool]]]:
 
 
 SECTION_OF_KIND = {"lcr-meter": "LCR meter", "dc-supply": "DC bias supply",
-                   "scanner": "Channel scanner", "thermometer": "Thermometer"}
+                   "scanner": "Channel scanner", "thermometer": "Thermometer",
+                   "chamber": "Temperature chamber"}
 COMMON = "Common to every instrument (IEEE 488.2)"
 
 
