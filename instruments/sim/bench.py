@@ -1,4 +1,4 @@
-"""SimBench: the simulated bench in-process, four instruments on four TCP ports.
+"""SimBench: the simulated bench in-process, five instruments on five TCP ports.
 
 Why in-process with real sockets: the drivers and the sweep talk to it through pyvisa and
 TCP exactly as to hardware, while a test can still read the truth (the supply's real state,
@@ -13,7 +13,8 @@ from typing import Iterable, Mapping, Sequence
 import numpy as np
 
 from instruments.clock import RealClock
-from instruments.roles import DEFAULT_PROFILES, ROLES
+from instruments.roles import ALL_ROLES, DEFAULT_PROFILES, ROLES
+from instruments.sim.chamber import ChamberSim
 from instruments.sim.dc_supply import DCSupplySim
 from instruments.sim.faults import Fault, FaultPlan
 from instruments.sim.fixture import BiasFixture, FixtureError, Wiring
@@ -22,7 +23,7 @@ from instruments.sim.scanner import ScannerSim
 from instruments.sim.server import InstrumentServer
 from instruments.sim.thermometer import ThermometerSim
 
-ROLE_ORDER = ROLES
+ROLE_ORDER = ALL_ROLES
 PROFILES = DEFAULT_PROFILES
 
 
@@ -36,12 +37,14 @@ def _toml_str(text: str) -> str:
 
 
 class SimBench:
-    """Meter, supply, scanner and thermometer over one bias fixture, served on 127.0.0.1.
+    """Meter, supply, scanner, thermometer and chamber over one bias fixture, on 127.0.0.1.
 
     parts: {part_id: SimPart} (instruments.sim.simpart), handed over by whoever starts the
     bench; fixture: slots with channel, sample_id, part_id (and for a lot's samples C_scale,
     field_scale, hours_since_heat_h), one sample per scanner channel.
-    base_port N: meter N, supply N+1, scanner N+2, thermometer N+3; 0 = a free port each.
+    base_port N: meter N, supply N+1, scanner N+2, thermometer N+3, chamber N+4; 0 = a free
+    port each. The chamber's air, the fixture and the parts follow instruments/sim/thermal.py;
+    the physics is read at the parts' temperature, the thermometer at the fixture's.
     Faults: see instruments.sim.faults; those given here are armed when the bench starts.
 
     Timing: a pyvisa write returns before the bench has executed it, and writes to two
@@ -58,9 +61,10 @@ class SimBench:
 
         self.clock = clock if clock is not None else RealClock()
         self.host = host
-        if not (base_port == 0 or 1 <= base_port <= 65535 - 3):
+        last = 65535 - (len(ROLE_ORDER) - 1)
+        if not (base_port == 0 or 1 <= base_port <= last):
             raise SimBenchError(f"base port {base_port} out of range; use 0 (free ports) or "
-                                "1 .. 65532")
+                                f"1 .. {last}")
         self.base_port = base_port
         self.seed = seed
         self.slots = list(fixture)
@@ -92,13 +96,17 @@ class SimBench:
         self.scanner = ScannerSim(f"SM{tag}-03", self.fixture)
         self.thermometer = ThermometerSim(f"SM{tag}-04", self.fixture,
                                           np.random.default_rng(seeds[-1]))
+        self.chamber = ChamberSim(f"SM{tag}-05", self.fixture.chamber)
         self.instruments = {"meter": self.meter, "supply": self.supply,
-                            "scanner": self.scanner, "thermometer": self.thermometer}
+                            "scanner": self.scanner, "thermometer": self.thermometer,
+                            "chamber": self.chamber}
         self.faults = FaultPlan({
             "error": lambda f: self.instruments[f.role].errors.push(f.code, "injected fault"),
             "overload": lambda f: self.meter.arm_overload(f.count),
             "current-limit": lambda f: self.fixture.set_fault_limit(f.limit_A),
             "temp-drift": lambda f: self.fixture.start_temp_drift(f.rate_C_per_min),
+            "refuse": lambda f: self.chamber.arm_refusal(f.count),
+            "unstable": lambda f: self.fixture.chamber.start_hunting(f.amplitude_C),
         })
         self._initial_faults = list(faults)
         self._servers: dict[str, InstrumentServer] = {}
@@ -108,7 +116,7 @@ class SimBench:
     # ------------------------------------------------------------ life cycle
 
     def start(self) -> "SimBench":
-        """Listen on the four ports; on any failure nothing is left open."""
+        """Listen on the five ports; on any failure nothing is left open."""
         if self._servers:
             return self
         try:
@@ -172,6 +180,8 @@ class SimBench:
         lines = ["# Bench file of a simulated bench (benchkit sim). Roles, resources, profiles,",
                  "# and which sample sits on which scanner channel.", ""]
         for role, resource in self.resources.items():
+            if role not in ROLES:
+                continue   # the bench file lists the four roles every bench has
             lines += [f"[instrument.{role}]", f"resource = {_toml_str(resource)}",
                       f"profile = {_toml_str(PROFILES[role])}", ""]
         for entry in self.channels:
@@ -208,11 +218,20 @@ class SimBench:
                 temp_C=temp_C, turn_V=turn_V, function=function)
 
     def set_temperature(self, temp_C: float) -> None:
-        """Chamber temperature at the fixture, degC (the parts and the thermometer follow)."""
+        """Air, fixture and parts at temp_C at once, stable (a test knob; the chamber's own
+        set point ramps instead)."""
         self.fixture.set_temperature(temp_C)
 
     def temperature_C(self) -> float:
+        """The parts' temperature now (what the physics uses), degC."""
         return self.fixture.temp_C()
+
+    def chamber_state(self) -> dict:
+        """{"setpoint_C", "air_C", "fixture_C", "part_C", "state"}: the chamber as it is now."""
+        th = self.fixture.chamber
+        with th.lock:
+            return {"setpoint_C": th.target_C, "air_C": th.air_C(),
+                    "fixture_C": th.fixture_C(), "part_C": th.part_C(), "state": th.state()}
 
     def inject(self, fault: Fault | str) -> Fault:
         """Arm a fault now; `after` counts messages to its instrument from this moment."""

@@ -19,9 +19,13 @@ message N+1 on.
 | overload | meter | the next `count` (default 1) FETCh?/READ? answers are 9.9E37 | once |
 | current-limit | supply | the supply's effective current limit drops to `limit` A (default 1e-7) | stays |
 | temp-drift | thermometer | the chamber temperature ramps by `rate` degC per clock minute (default 0.5) | stays |
+| refuse | chamber | the next `count` (default 1) set points are refused: error -221, the set point stays as it was | once |
+| unstable | chamber | the chamber's controller hunts by `amp` degC (default 3) around its set point, so it never reports STABLE | stays |
 
 `role=R` picks which instrument's messages are counted; the effect stays where the table
-says (overload on the meter, current-limit on the supply, temp-drift on the chamber).
+says (overload on the meter, current-limit on the supply, temp-drift on the chamber, refuse
+and unstable on the chamber). Timeout, drop, garble, late and error act on the chamber's link
+with `role=chamber`.
 """
 
 from __future__ import annotations
@@ -30,7 +34,7 @@ import threading
 from dataclasses import dataclass
 from typing import Callable, Mapping
 
-ROLES = ("meter", "supply", "scanner", "thermometer")
+ROLES = ("meter", "supply", "scanner", "thermometer", "chamber")
 
 DEFAULT_ROLE = {
     "timeout": "meter",
@@ -41,11 +45,13 @@ DEFAULT_ROLE = {
     "overload": "meter",
     "current-limit": "supply",
     "temp-drift": "thermometer",
+    "refuse": "chamber",
+    "unstable": "chamber",
 }
 KINDS = tuple(DEFAULT_ROLE)
 
 REPLY_KINDS = ("timeout", "garble", "late")  # act on a query's reply
-LASTING_KINDS = ("current-limit", "temp-drift")
+LASTING_KINDS = ("current-limit", "temp-drift", "unstable")
 
 # option name in the spec -> (field name, type, kinds it applies to)
 _OPTIONS: dict[str, tuple[str, type, tuple[str, ...]]] = {
@@ -54,7 +60,8 @@ _OPTIONS: dict[str, tuple[str, type, tuple[str, ...]]] = {
     "delay": ("delay_s", float, ("late",)),
     "rate": ("rate_C_per_min", float, ("temp-drift",)),
     "limit": ("limit_A", float, ("current-limit",)),
-    "count": ("count", int, ("overload",)),
+    "count": ("count", int, ("overload", "refuse")),
+    "amp": ("amplitude_C", float, ("unstable",)),
     "code": ("code", int, ("error",)),
 }
 
@@ -75,6 +82,7 @@ class Fault:
     limit_A: float = 1e-7
     count: int = 1
     code: int = -222
+    amplitude_C: float = 3.0
 
     def __post_init__(self) -> None:
         if self.kind not in DEFAULT_ROLE:
@@ -91,6 +99,8 @@ class Fault:
             raise FaultSpecError(f"fault {self.kind}: delay={self.delay_s} must be positive seconds")
         if not self.limit_A > 0:
             raise FaultSpecError(f"fault {self.kind}: limit={self.limit_A} must be positive amperes")
+        if not self.amplitude_C > 0:
+            raise FaultSpecError(f"fault {self.kind}: amp={self.amplitude_C} must be positive degC")
         if self.count < 1:
             raise FaultSpecError(f"fault {self.kind}: count={self.count} must be 1 or more")
         if not -499 <= self.code <= -100:
@@ -137,7 +147,8 @@ class Fault:
         parts = [self.kind, f"after={self.after}", f"role={self.role}"]
         extra = {"late": f"delay={self.delay_s:g}", "temp-drift": f"rate={self.rate_C_per_min:g}",
                  "current-limit": f"limit={self.limit_A:g}", "overload": f"count={self.count}",
-                 "error": f"code={self.code}"}.get(self.kind)
+                 "error": f"code={self.code}", "refuse": f"count={self.count}",
+                 "unstable": f"amp={self.amplitude_C:g}"}.get(self.kind)
         if extra:
             parts.append(extra)
         return ":".join(parts)
@@ -168,7 +179,7 @@ class FaultPlan:
     """Counts messages per role and decides when each armed fault acts.
 
     `effects` maps the kinds that act on the bench (error, overload, current-limit,
-    temp-drift) to a callable that applies the fault; the transport applies the rest.
+    temp-drift, refuse, unstable) to a callable that applies the fault; the transport applies the rest.
     """
 
     def __init__(self, effects: Mapping[str, Callable[[Fault], None]]):

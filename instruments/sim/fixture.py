@@ -14,6 +14,8 @@ Circuit (one closed channel at a time, break before make):
 - Output off: the supply reads 0 V and the part discharges through R_feed + R_bleed (the
   supply's output-off bleeder).
 - A part on an open channel keeps its charge, decaying through its own insulation resistance.
+- Temperature: the chamber's air, the fixture and the parts (instruments/sim/thermal.py); the
+  physics is read at the parts' temperature, the thermometer reads the fixture's.
 
 The physics time of each part is the integration time of this module, so a part sees its
 bias change at the moment it really changed, even when nobody asked the bench for an hour
@@ -28,6 +30,7 @@ from dataclasses import dataclass
 from typing import Callable, Mapping, Protocol
 
 from instruments.sim.physics import Measurement, level_across_part_Vrms
+from instruments.sim.thermal import ThermalChamber
 
 REPORT_STEP_V = 1e-3  # bias changes smaller than this are not passed to the part
 MAX_DV_PER_STEP_V = 0.05  # sub-step so that C(V) is re-evaluated at least every 50 mV
@@ -71,25 +74,6 @@ class PartTime:
 
     def now(self) -> float:
         return self.t_s
-
-
-class Chamber:
-    """The temperature at the fixture: a set point, optionally ramping (temp-drift fault)."""
-
-    def __init__(self, temp_C: float, t_s: float):
-        self._set_C = float(temp_C)
-        self._t0_s = t_s
-        self._rate_C_per_s = 0.0
-
-    def temp_C(self, t_s: float) -> float:
-        return self._set_C + self._rate_C_per_s * max(0.0, t_s - self._t0_s)
-
-    def set(self, temp_C: float, t_s: float) -> None:
-        self._set_C, self._t0_s = float(temp_C), t_s
-
-    def start_drift(self, rate_C_per_min: float, t_s: float) -> None:
-        self._set_C, self._t0_s = self.temp_C(t_s), t_s
-        self._rate_C_per_s = rate_C_per_min / 60.0
 
 
 def _substep(step: "_Law", V: float, C: float, remaining: float,
@@ -160,7 +144,7 @@ class BiasFixture:
         self.lock = threading.RLock()
         self.n_channels = channels
         self._t = clock.now()
-        self.chamber = Chamber(temp_C, self._t)
+        self.chamber = ThermalChamber(clock, temp_C)
         self._slots: dict[int, _Slot] = {}
         for channel, make in sorted(parts.items()):
             if not 1 <= channel <= channels:
@@ -222,15 +206,21 @@ class BiasFixture:
             return (self.set_V - slot.V) / self.wiring.feed_R_ohm
 
     def temp_C(self) -> float:
+        """The parts' temperature (what the physics uses), degC."""
         with self.lock:
-            return self.chamber.temp_C(self.clock.now())
+            return self.chamber.part_C()
+
+    def fixture_temp_C(self) -> float:
+        """The fixture's temperature (where the bench's thermometer sits), degC."""
+        with self.lock:
+            return self.chamber.fixture_C()
 
     def measure(self, freq_Hz: float, osc_level_Vrms: float):
         """One reading of whatever is on the closed channel (open fixture if none)."""
         with self.lock:
             self.advance()
             slot = self._connected()
-            temp_C = self.chamber.temp_C(self._t)
+            temp_C = self.chamber.part_C(self._t)
             if slot is None:
                 return self._open_reading(freq_Hz, osc_level_Vrms)
             return slot.part.measure(freq_Hz, osc_level_Vrms, temp_C,
@@ -283,14 +273,15 @@ class BiasFixture:
             self.closed = None
 
     def set_temperature(self, temp_C: float) -> None:
+        """Air, fixture and parts at temp_C at once (a test knob; the chamber ramps)."""
         with self.lock:
             self.advance()
-            self.chamber.set(temp_C, self._t)
+            self.chamber.teleport(temp_C)
 
     def start_temp_drift(self, rate_C_per_min: float) -> None:
         with self.lock:
             self.advance()
-            self.chamber.start_drift(rate_C_per_min, self._t)
+            self.chamber.start_drift(rate_C_per_min)
 
     # ------------------------------------------------------------ integration
 
@@ -363,7 +354,7 @@ class BiasFixture:
                     V = step.target_V  # settled: within a microvolt of where it goes
                 break  # nothing moves (e.g. an uncharged part on an open channel)
             slot.time.t_s = t
-            C = slot.part.C_now_F(self.chamber.temp_C(t))
+            C = slot.part.C_now_F(self.chamber.part_C(t))
             slope, max_dV = 0.0, MAX_DV_PER_STEP_V / 10  # no slope known: probe with a small step
             if slot.last_point is not None:
                 V_prev, C_prev = slot.last_point

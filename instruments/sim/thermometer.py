@@ -1,4 +1,7 @@
-"""The simulated thermometer (role `thermometer`): chamber temperature plus a little noise."""
+"""The simulated thermometer (role `thermometer`): the fixture's temperature plus a little noise.
+
+It sits on the fixture, not on the part: after a temperature step the part lags behind it.
+"""
 
 from __future__ import annotations
 
@@ -23,4 +26,4 @@ class ThermometerSim(ScpiInstrument):
         self.commands.add("MEASure:TEMPerature", query=lambda a: format_float(self._read()))
 
     def _read(self) -> float:
-        return self.fixture.temp_C() + float(self.rng.normal(0.0, NOISE_C))
+        return self.fixture.fixture_temp_C() + float(self.rng.normal(0.0, NOISE_C))

@@ -65,15 +65,16 @@ def test_sim_prints_resources_writes_bench_file_and_stops_on_sigint(tmp_path):
     bench_file = tmp_path / "out" / "bench.toml"
     proc = start_sim("--bench-file", str(bench_file), "--virtual-clock")
     try:
-        lines = read_lines(proc, 5)
+        lines = read_lines(proc, 6)
         assert [line.split()[0] for line in lines] == ["meter", "supply", "scanner",
-                                                       "thermometer", "bench"]
-        resources = dict(line.split() for line in lines[:4])
+                                                       "thermometer", "chamber", "bench"]
+        resources = dict(line.split() for line in lines[:5])
         for resource in resources.values():
             assert resource.startswith("TCPIP0::127.0.0.1::") and resource.endswith("::SOCKET")
         # the bench file parses as TOML and points at the same resources (contract section 4)
         doc = tomllib.loads(bench_file.read_text(encoding="utf-8"))
-        assert {r: e["resource"] for r, e in doc["instrument"].items()} == resources
+        assert {r: e["resource"] for r, e in doc["instrument"].items()} == {
+            r: resources[r] for r in ("meter", "supply", "scanner", "thermometer")}
         assert len(doc["channel"]) == 8
         # and the instruments answer through pyvisa
         rm = pyvisa.ResourceManager("@py")

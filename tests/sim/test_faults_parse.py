@@ -15,7 +15,7 @@ from instruments.sim.faults import KINDS, Fault, FaultPlan, FaultSpecError
 @pytest.mark.parametrize("kind,role", [
     ("timeout", "meter"), ("drop", "meter"), ("garble", "meter"), ("late", "meter"),
     ("overload", "meter"), ("error", "meter"), ("current-limit", "supply"),
-    ("temp-drift", "thermometer"),
+    ("temp-drift", "thermometer"), ("refuse", "chamber"), ("unstable", "chamber"),
 ])
 def test_default_role_per_kind(kind, role):
     # contract section 6: default role per kind
@@ -32,6 +32,10 @@ def test_options():
     assert Fault.parse("error:code=-113:role=supply").code == -113
     assert Fault.parse(" DROP:After=40 ").after == 40
     assert Fault.parse("drop:role=Scanner").role == "scanner"
+    assert Fault.parse("refuse:count=2").count == 2
+    assert Fault.parse("unstable:amp=1.5").amplitude_C == 1.5
+    assert Fault.parse("timeout:role=chamber").role == "chamber"
+    assert Fault.parse("unstable:amp=1.5").spec() == "unstable:after=0:role=chamber:amp=1.5"
 
 
 def test_defaults_documented():

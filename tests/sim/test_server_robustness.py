@@ -18,7 +18,7 @@ from instruments.sim import SimBench, SimBenchError
 from instruments.sim.bench import ROLE_ORDER
 from benchkit.commands.sim import demo_bench
 
-MODELS = {"meter": "SIM-LCR", "supply": "SIM-DCS", "scanner": "SIM-MUX",
+MODELS = {"meter": "SIM-LCR", "supply": "SIM-DCS", "scanner": "SIM-MUX", "chamber": "SIM-CHAMBER",
           "thermometer": "SIM-THERMO"}
 
 
@@ -261,17 +261,17 @@ def test_random_bytes_over_the_link_never_stop_the_answers(bench, data):
 
 
 def _free_base_port():
-    """A base port whose next three ports are free too (a few tries; None if unlucky)."""
+    """A base port whose next four ports are free too (a few tries; None if unlucky)."""
     for _ in range(10):
         probe = socket.socket()
         probe.bind(("127.0.0.1", 0))
         base = probe.getsockname()[1]
         probe.close()
-        if base > 65532:
+        if base > 65531:
             continue
         socks = []
         try:
-            for offset in range(4):
+            for offset in range(5):
                 s = socket.socket()
                 s.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
                 socks.append(s)
@@ -286,13 +286,14 @@ def _free_base_port():
 
 
 def test_base_port_layout_and_port_in_use():
-    # contract section 2: base_port N -> meter N, supply N+1, scanner N+2, thermometer N+3;
+    # contract section 2: base_port N -> meter N, supply N+1, scanner N+2, thermometer N+3,
+    # chamber N+4;
     # a port in use is one clear error and leaves nothing open
     base = _free_base_port()
     if base is None:
-        pytest.skip("no four consecutive free ports found")
+        pytest.skip("no five consecutive free ports found")
     with demo_bench(clock=VirtualClock(), base_port=base) as first:
-        assert [address(first.resources[r])[1] for r in ROLE_ORDER] == [base + i for i in range(4)]
+        assert [address(first.resources[r])[1] for r in ROLE_ORDER] == [base + i for i in range(len(ROLE_ORDER))]
         threads = threading.active_count()
         second = demo_bench(clock=VirtualClock(), base_port=base)
         with pytest.raises(SimBenchError, match=f"cannot listen on 127.0.0.1:{base} for the meter"):
