@@ -4,6 +4,9 @@
      "covariance", "valid_range_V", "conditions", "stats", "source", "origin",
      "part_id", "sample_id", "branch"}
 
+A curve family (fits/family.py) holds such documents, one per temperature, under
+{"format": "benchkit-curve-family", "version", "interpolation", "temp_range_C", "curves"}.
+
 A curve is stored as plain data (model name, parameters, covariance, version), never as a
 pickled function, so any later version can read it. Every check failure raises
 CurveDocumentError naming the field: "<where>: field 'covariance': must be a 3x3 matrix ...".
@@ -20,6 +23,7 @@ from fits import models
 from fits.errors import CurveDocumentError
 
 FORMAT = "benchkit-curve"
+FAMILY_FORMAT = "benchkit-curve-family"   # C(V, T): member curves at several temperatures (fits/family.py)
 VERSION = 1
 ORIGINS = ("measured", "supplier claim", "lot summary")
 BRANCHES = ("rising", "falling")
