@@ -110,8 +110,9 @@ def _build_bench(args):
         faults = [Fault.parse(spec) for spec in args.fault]
     except FaultSpecError as exc:
         raise UserError(f"--fault: {exc}") from None
-    if not (args.port == 0 or 1 <= args.port <= 65532):
-        raise UserError(f"--port {args.port}: use 0 (free ports) or a base port 1 .. 65532")
+    if not (args.port == 0 or 1 <= args.port <= 65531):
+        raise UserError(f"--port {args.port}: use 0 (free ports) or a base port 1 .. 65531 "
+                        "(five instruments on consecutive ports)")
     try:
         parts = load_parts(args.parts or DEMO_PARTS)
         if args.lot:

@@ -11,17 +11,20 @@ TEMP_GROUP_TOL_C = 2.0   # readings of one soak; set points of a plan lie furthe
 
 
 def class_code(text: str):
-    from benchkit.codes import parse_class_code
+    from benchkit.catalogue.codes import parse_class_code
 
     return parse_class_code(text)
 
 
 def codes_of_parts(part_ids, parts_path=None) -> dict:
     """{part_id: ClassCode} from the parts file (default: the demo catalogue)."""
-    from benchkit.codes import parse_class_code
-    from benchkit.sweep import load_parts_catalogue
+    from benchkit.catalogue.codes import parse_class_code
+    from benchkit.catalogue import DEMO_PARTS, PartsFileError, load_parts
 
-    parts = load_parts_catalogue(parts_path)
+    try:
+        parts = load_parts(parts_path or DEMO_PARTS)
+    except PartsFileError as exc:
+        raise UserError(str(exc)) from None
     out = {}
     for pid in sorted(part_ids):
         spec = parts.get(pid)
@@ -43,7 +46,7 @@ def _family_from_doc(path: Path):
 
 
 def _families_from_run(run_dir: Path, branch: str, model: str):
-    from benchkit import rundata
+    from benchkit.sweep import rundir as rundata
     from fits.errors import FitsError
     from fits.family import fit_family
 

@@ -16,7 +16,7 @@ import pytest
 from scipy import signal
 
 from instruments.clock import VirtualClock
-from instruments.sim import SimBench
+from benchkit.commands.sim import demo_bench
 from instruments.sim.thermal import ChamberParams, ThermalChamber
 
 
@@ -104,7 +104,7 @@ def test_drift_moves_everything_and_teleport_resets_it():
 
 def test_chamber_over_scpi_set_point_rate_state_and_thermometer_on_the_fixture(rm):
     clock = VirtualClock()
-    with SimBench.demo(clock=clock) as bench:
+    with demo_bench(clock=clock) as bench:
         ch = open_res(rm, bench.resources["chamber"])
         th = open_res(rm, bench.resources["thermometer"])
         try:
@@ -136,7 +136,7 @@ def test_chamber_over_scpi_set_point_rate_state_and_thermometer_on_the_fixture(r
 
 def test_the_meter_reads_the_part_at_the_part_temperature_not_the_air(rm):
     clock = VirtualClock()
-    with SimBench.demo(clock=clock) as bench:
+    with demo_bench(clock=clock) as bench:
         m, sc, ch = (open_res(rm, bench.resources[r]) for r in ("meter", "scanner", "chamber"))
         try:
             sc.write("ROUT:CLOS (@1)")
@@ -156,7 +156,7 @@ def test_the_meter_reads_the_part_at_the_part_temperature_not_the_air(rm):
 
 
 def test_refuse_fault_keeps_the_set_point_and_reports_minus_221(rm):
-    with SimBench.demo(clock=VirtualClock()) as bench:
+    with demo_bench(clock=VirtualClock()) as bench:
         ch = open_res(rm, bench.resources["chamber"])
         try:
             bench.inject("refuse:after=0")
@@ -171,7 +171,7 @@ def test_refuse_fault_keeps_the_set_point_and_reports_minus_221(rm):
 
 def test_unstable_fault_never_lets_the_chamber_report_stable(rm):
     clock = VirtualClock()
-    with SimBench.demo(clock=clock) as bench:
+    with demo_bench(clock=clock) as bench:
         ch = open_res(rm, bench.resources["chamber"])
         try:
             bench.inject("unstable:after=0:amp=3")

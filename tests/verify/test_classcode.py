@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from benchkit.codes import parse_class_code
+from benchkit.catalogue.codes import parse_class_code
 from benchkit.verify.classcode import check_class_code
 from fits import Curve
 from fits.family import CurveFamily
