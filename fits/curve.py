@@ -37,7 +37,7 @@ class Curve:
                  stats: Mapping | None = None, source: Mapping | None = None,
                  origin: str = "measured", part_id: str | None = None,
                  sample_id: str | None = None, branch: str | None = None,
-                 param_names=None, _where: str = "Curve"):
+                 param_names=None, wideband=None, _where: str = "Curve"):
         where = _where
         names = param_names if param_names is not None else list(params)
         self.spec = doc.check_model(model, names, where)
@@ -56,6 +56,7 @@ class Curve:
         self.part_id = part_id
         self.sample_id = sample_id
         self.branch = branch
+        self.wideband = doc.check_wideband(wideband, where)  # fits.wideband.WidebandModel or None
 
     # ---- construction from points (supplier claims, lot summaries) -----------------------
     @classmethod
@@ -175,6 +176,7 @@ class Curve:
 
     # ---- documents -----------------------------------------------------------------------
     def to_dict(self) -> dict:
+        extra = {} if self.wideband is None else {"wideband": self.wideband.to_dict()}
         return doc.json_safe({
             "format": doc.FORMAT,
             "version": doc.VERSION,
@@ -190,6 +192,7 @@ class Curve:
             "part_id": self.part_id,
             "sample_id": self.sample_id,
             "branch": self.branch,
+            **extra,
         })
 
     def to_json(self, indent: int | None = 2) -> str:
@@ -202,7 +205,8 @@ class Curve:
                    conditions=d.get("conditions"), stats=d.get("stats"),
                    source=d.get("source"), origin=d.get("origin", "measured"),
                    part_id=d.get("part_id"), sample_id=d.get("sample_id"),
-                   branch=d.get("branch"), param_names=d["param_names"], _where=where)
+                   branch=d.get("branch"), param_names=d["param_names"],
+                   wideband=d.get("wideband"), _where=where)
 
     @classmethod
     def from_json(cls, text: str, where: str = "curve document") -> "Curve":

@@ -2,7 +2,7 @@
 
     {"format": "benchkit-curve", "version": 1, "model", "param_names", "params",
      "covariance", "valid_range_V", "conditions", "stats", "source", "origin",
-     "part_id", "sample_id", "branch"}
+     "part_id", "sample_id", "branch", "wideband" (optional: fits/wideband.py)}
 
 A curve family (fits/family.py) holds such documents, one per temperature, under
 {"format": "benchkit-curve-family", "version", "interpolation", "temp_range_C", "curves"}.
@@ -191,6 +191,17 @@ def check_labels(origin: Any, part_id: Any, sample_id: Any, branch: Any, where: 
             _fail(where, name, f"must be text or null, got {value!r}")
     if branch is not None and branch not in BRANCHES:
         _fail(where, "branch", f"must be 'rising', 'falling' or null, got {branch!r}")
+
+
+def check_wideband(value: Any, where: str):
+    """The optional wideband model (impedance against frequency per bias), or None."""
+    if value is None:
+        return None
+    from fits.wideband import WidebandModel
+
+    if isinstance(value, WidebandModel):
+        return value
+    return WidebandModel.from_dict(value, where)
 
 
 def json_safe(value):

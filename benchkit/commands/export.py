@@ -14,14 +14,24 @@ def register(subparsers) -> None:
         description="Export one curve document (from 'benchkit fit' or the library) for other tools: "
                     "csv (bias_V, C_F, delta_C_pct, u_C_F over the valid range), json (the curve "
                     "document), spice (a charge-conserving nonlinear capacitor subcircuit for ngspice, "
-                    "with its ESR as a series resistor).")
+                    "with its ESR as a series resistor). With --bias, for a curve measured against "
+                    "frequency: touchstone (.s1p, or .s2p with --fixture series-through|shunt-through; "
+                    "version 2 with --touchstone-version 2), spice (a linear subcircuit right in AC "
+                    "analysis at that bias), csv (|Z|, ESR, ESL, C against frequency).")
     p.add_argument("curve", metavar="CURVE.json")
-    p.add_argument("--format", choices=("csv", "json", "spice"), required=True)
+    p.add_argument("--format", choices=("csv", "json", "spice", "touchstone"), required=True)
     p.add_argument("--out", required=True, metavar="FILE")
     p.add_argument("--esr", type=arg_type("ohm", "--esr"), metavar="OHM",
                    help="series resistance for the SPICE model (none when not given)")
     p.add_argument("--name", metavar="NAME", help="SPICE subcircuit name (default: from the part id)")
-    p.add_argument("--points", type=int, metavar="N", help="rows of the csv table (default 51)")
+    p.add_argument("--points", type=int, metavar="N",
+                   help="rows of the csv table (default 51; 201 frequencies with --bias)")
+    p.add_argument("--bias", type=arg_type("V", "--bias"), metavar="VOLTS",
+                   help="the bias of a wideband export (touchstone, or csv/spice against frequency)")
+    p.add_argument("--fixture", choices=("one-port", "series-through", "shunt-through"),
+                   help="Touchstone fixture: .s1p is one-port; .s2p needs series- or shunt-through")
+    p.add_argument("--touchstone-version", choices=("1", "2"), default="1",
+                   help="Touchstone version (2 writes the 2.0 keywords)")
     p.set_defaults(func=run)
 
 
@@ -38,6 +48,7 @@ def run(args) -> int:
         raise UserError(f"{src}: unreadable ({exc})") from None
     curve = curve_from_json(text, str(src))
     target = export_curve(curve, args.format, args.out, esr_ohm=args.esr, name=args.name, n_points=args.points,
-                          source_note=f"curve document {src.name}")
+                          source_note=f"curve document {src.name}", bias_V=args.bias,
+                          fixture=args.fixture, touchstone_version=args.touchstone_version)
     print(f"{src} -> {target}")
     return 0

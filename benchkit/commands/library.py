@@ -94,9 +94,9 @@ def register(subparsers) -> None:
     sp.add_argument("--curve", type=int, metavar="N", help="remove only curve N of the part")
     sp.set_defaults(func=run, action=_remove)
 
-    sp = add("export", "export a part's curves as csv, json or spice")
+    sp = add("export", "export a part's curves as csv, json, spice or touchstone")
     sp.add_argument("part_id", metavar="ID")
-    sp.add_argument("--format", choices=("csv", "json", "spice"), required=True)
+    sp.add_argument("--format", choices=("csv", "json", "spice", "touchstone"), required=True)
     sp.add_argument("--out", required=True, metavar="PATH",
                     help="a file (when one curve is exported) or a folder (one file per curve, "
                          "named from the part id made file-safe and the curve number)")
@@ -104,6 +104,11 @@ def register(subparsers) -> None:
     sp.add_argument("--esr", type=arg_type("ohm", "--esr"), metavar="OHM",
                     help="series resistance for the SPICE model (default: the one stored with the curve)")
     sp.add_argument("--points", type=int, metavar="N", help="rows of the csv table (default 51)")
+    sp.add_argument("--bias", type=arg_type("V", "--bias"), metavar="VOLTS",
+                    help="bias of a wideband export (touchstone; csv or spice against frequency)")
+    sp.add_argument("--fixture", choices=("one-port", "series-through", "shunt-through"),
+                    help="Touchstone fixture: .s1p is one-port; .s2p needs series- or shunt-through")
+    sp.add_argument("--touchstone-version", choices=("1", "2"), default="1")
     sp.set_defaults(func=run, action=_export)
 
     sp = add("import", "merge another library file into this one (what is here already is not added again)")
@@ -305,13 +310,24 @@ def _export(args) -> int:
             raise UserError(f"--out {out}: several curves need a folder, and this is a file")
         # render everything before writing anything: a bad curve leaves no partial set of files
         jobs = []
+        bias = getattr(args, "bias", None)
+        if bias is not None and args.curve is None:  # a wideband export: the curves that have one
+            records = [r for r in records if r.curve.wideband is not None] or records[:1]
         for rec in records:
-            target = out if as_file else inside(out, f"{safe_stem(part.part_id)}_c{rec.curve_id}{SUFFIX[args.format]}")
+            sfx = SUFFIX[args.format]
+            if args.format == "touchstone":
+                from benchkit.exports.touchstone import suffix
+                sfx = suffix(getattr(args, "fixture", None) or "one-port", args.touchstone_version)
+            target = out if as_file or len(records) == 1 and out.suffix else inside(
+                out, f"{safe_stem(part.part_id)}_c{rec.curve_id}{sfx}")
             jobs.append((rec, target))
         texts = [render(rec.curve, args.format, esr_ohm=args.esr if args.esr is not None else rec.esr_ohm,
                         n_points=args.points, name=part.part_id,
-                        source_note=f"library {lib.where} curve {rec.curve_id}; run {rec.run_path or '-'}")
-                 for rec, _ in jobs]
+                        source_note=f"library {lib.where} curve {rec.curve_id}; run {rec.run_path or '-'}",
+                        bias_V=getattr(args, "bias", None), fixture=getattr(args, "fixture", None),
+                        touchstone_version=getattr(args, "touchstone_version", "1"),
+                        out_suffix=target.suffix if args.format == "touchstone" else None)
+                 for rec, target in jobs]
         for (rec, target), text in zip(jobs, texts):
             write_text_atomic(target, text)
             print(f"curve {rec.curve_id} -> {target}")

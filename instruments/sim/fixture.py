@@ -29,7 +29,6 @@ import threading
 from dataclasses import dataclass
 from typing import Callable, Mapping, Protocol
 
-from instruments.sim.physics import Measurement, level_across_part_Vrms
 from instruments.sim.thermal import ThermalChamber
 
 REPORT_STEP_V = 1e-3  # bias changes smaller than this are not passed to the part
@@ -63,6 +62,17 @@ class Wiring:
     source_R_ohm: float = 100.0  # meter source resistance (COMMANDS.md)
     stray_C_F: float = 2e-12  # open fixture
     stray_G_S: float = 1e-10
+    residual_R_ohm: float = 1e-3  # short fixture: leads and contacts in series with the part
+    residual_L_H: float = 10e-9
+    short_channel: int | None = None  # scanner channel wired to a shorting bar (none: no short)
+
+    @property
+    def residuals(self):
+        """The fixture's L network (instruments/sim/wideband.py)."""
+        from instruments.sim.wideband import FixtureResiduals
+
+        return FixtureResiduals(self.residual_R_ohm, self.residual_L_H, self.stray_C_F,
+                                self.stray_G_S)
 
 
 class PartTime:
@@ -216,15 +226,24 @@ class BiasFixture:
             return self.chamber.fixture_C()
 
     def measure(self, freq_Hz: float, osc_level_Vrms: float):
-        """One reading of whatever is on the closed channel (open fixture if none)."""
+        """One reading of whatever is on the closed channel through the fixture's residuals
+        (instruments/sim/wideband.py): the part, the short position, or the open fixture."""
+        from instruments.sim import wideband
+
         with self.lock:
             self.advance()
             slot = self._connected()
             temp_C = self.chamber.part_C(self._t)
             if slot is None:
-                return self._open_reading(freq_Hz, osc_level_Vrms)
-            return slot.part.measure(freq_Hz, osc_level_Vrms, temp_C,
-                                     source_R_ohm=self.wiring.source_R_ohm)
+                position = ("short" if self.closed is not None
+                            and self.closed == self.wiring.short_channel else "open")
+                return wideband.fixture_reading(self.wiring.residuals, position, freq_Hz,
+                                                osc_level_Vrms, self.wiring.source_R_ohm, self._t)
+            if not wideband.supports(slot.part):  # a stand-in part answers for itself
+                return slot.part.measure(freq_Hz, osc_level_Vrms, temp_C,
+                                         source_R_ohm=self.wiring.source_R_ohm)
+            return wideband.measure(slot.part, freq_Hz, osc_level_Vrms, temp_C,
+                                    self.wiring.source_R_ohm, self.wiring.residuals)
 
     def supply_state(self) -> dict:
         with self.lock:
@@ -378,15 +397,3 @@ class BiasFixture:
                 break
         slot.V = V
         slot.time.t_s = t_end
-
-    def _open_reading(self, freq_Hz: float, osc_level_Vrms: float) -> Measurement:
-        """Open fixture: Y = G + jwC; Cs, Rs from the handbook series-parallel relations."""
-        w = 2 * math.pi * freq_Hz
-        Cp, G = self.wiring.stray_C_F, self.wiring.stray_G_S
-        D = G / (w * Cp)
-        Cs = Cp * (1 + D * D)
-        Rs = D / (w * Cs)
-        level = level_across_part_Vrms(osc_level_Vrms, 1.0 / complex(G, w * Cp),
-                                       self.wiring.source_R_ohm)
-        return Measurement(Cs_F=Cs, Cp_F=Cp, D=D, Rs_ohm=Rs, Rp_ohm=1.0 / G, ac_dut_Vrms=level,
-                           freq_Hz=freq_Hz, bias_V=0.0, t_s=self._t)
