@@ -69,6 +69,7 @@ class SimParams:
     tempco_points_C: tuple[float, ...] = ()    # class 2: temperatures of the C(T) curve
     tempco_points_pct: tuple[float, ...] = ()  # class 2: change from 25 degC there, percent
     tempco_ppm_per_K: float = 0.0              # class 1: linear coefficient
+    esl_H: float = 1.0e-9                      # series inductance of the mounted part
 
 
 
@@ -179,6 +180,10 @@ _SIM_COMMON = {  # name -> kind of number
     "insulation_RC_s": "positive",
     "noise_frac": "nonneg",
 }
+# Optional fields (default when absent), so parts files written before them still load.
+# ESL of small MLCCs: a few tenths of a nH to about 1 nH by case and mounting [common practice,
+# from memory]; 1 nH is the larger end.
+_SIM_OPTIONAL = {"esl_H": ("nonneg", 1.0e-9)}
 _SIM_CLASS2 = ("tempco_points_C", "tempco_points_pct")
 _SIM_CLASS1 = ("tempco_ppm_per_K",)
 
@@ -191,10 +196,12 @@ def _parse_sim(ck: _Check, s: dict, where: str, limits: ClassBand) -> SimParams:
             give = " and ".join(f"'sim.{x}'" for x in extra)
             raise ck.field_fail(where, f"sim.{name}", f"not for a class-{limits.dielectric_class}"
                                 f" code ({limits.code}); give {give}", s[name], show=False)
-    ck.known(s, tuple(_SIM_COMMON) + extra, where)
+    ck.known(s, tuple(_SIM_COMMON) + extra + tuple(_SIM_OPTIONAL), where)
     values: dict[str, Any] = {}
     for name, kind in _SIM_COMMON.items():
         values[name] = ck.number(s, name, where, kind)
+    for name, (kind, default) in _SIM_OPTIONAL.items():
+        values[name] = ck.number(s, name, where, kind) if name in s else default
     if values["D_high_bias"] > values["D_zero_bias"]:
         raise ck.field_fail(where, "sim.D_high_bias", "must not exceed 'sim.D_zero_bias' "
                             "(losses fall with bias)", values["D_high_bias"])

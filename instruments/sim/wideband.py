@@ -47,21 +47,12 @@ from dataclasses import dataclass
 
 from instruments.sim.physics import Measurement, SimulatedPart, level_across_part_Vrms
 
-# Typical mounted ESL by EIA case code [common practice, from memory: a few tenths of a nH
-# to about 1 nH for small MLCCs, more for longer cases]. Used when [part.sim] has no esl_H.
-ESL_BY_CASE_H = {"01005": 0.25e-9, "0201": 0.3e-9, "0402": 0.4e-9, "0603": 0.6e-9,
-                 "0805": 0.8e-9, "1206": 1.0e-9, "1210": 1.0e-9, "1808": 1.2e-9,
-                 "1812": 1.2e-9, "2220": 1.3e-9, "2225": 1.3e-9}
-DEFAULT_ESL_H = 1.0e-9
 NOISE_LEVEL_FLOOR_Vrms = 0.01  # as physics.py: below about this level the reading gets noisier
 
 
 def esl_H(spec) -> float:
-    """The part's series inductance: [part.sim] esl_H if given, else typical for its case."""
-    value = getattr(getattr(spec, "sim", None), "esl_H", None)
-    if value is not None:
-        return float(value)
-    return ESL_BY_CASE_H.get(str(getattr(spec, "case", "")), DEFAULT_ESL_H)
+    """The part's series inductance, [part.sim] esl_H (instruments/sim/simpart.py)."""
+    return float(spec.sim.esl_H)
 
 
 @dataclass(frozen=True)

@@ -8,7 +8,6 @@ import numpy as np
 import pytest
 
 from instruments.clock import VirtualClock
-from instruments.sim.parts import DEMO_PARTS, load_parts
 
 # 20+ frequencies from 100 Hz to 10 MHz, 5 per decade (the issue's range)
 FREQS_HZ = np.logspace(2, 7, 26)
@@ -16,7 +15,11 @@ FREQS_HZ = np.logspace(2, 7, 26)
 
 @pytest.fixture(scope="session")
 def demo_parts():
-    return load_parts(DEMO_PARTS)
+    """{part id: SimPart} of the demo catalogue, as a simulated bench gets them."""
+    from benchkit.catalogue import DEMO_PARTS, load_parts
+    from benchkit.commands.sim import simulated_parts
+
+    return simulated_parts(load_parts(DEMO_PARTS))
 
 
 def make_part(spec, noise: bool = True, seed: int = 1):

@@ -89,3 +89,20 @@ def test_open_and_short_positions_read_the_l_network(demo_parts):
     open_ = fx.measure(f, 0.5).Z_ohm
     assert short == pytest.approx(complex(1e-3, omega * 10e-9), rel=1e-12)
     assert open_ == pytest.approx(complex(1e-3, omega * 10e-9) + 1 / (1j * omega * 2e-12), rel=1e-12)
+
+
+def test_esl_field_is_optional_and_checked(demo_parts):
+    # parts files written before the field still load (default 1 nH); a negative one is refused
+    from instruments.sim.simpart import SimPartError, sim_part
+
+    p = demo_parts["BD-1006"]
+    table = {k: getattr(p.sim, k) for k in p.sim.__dataclass_fields__}
+    table = {k: (list(v) if isinstance(v, tuple) else v) for k, v in table.items()
+             if not (k == "tempco_ppm_per_K")}
+    del table["esl_H"]
+    part = sim_part("BD-1006", p.nominal_C_F, p.rated_V, p.band, p.ref_freq_Hz, p.ref_level_Vrms,
+                    table, "parts.toml part BD-1006")
+    assert part.sim.esl_H == 1.0e-9
+    with pytest.raises(SimPartError, match="sim.esl_H"):
+        sim_part("BD-1006", p.nominal_C_F, p.rated_V, p.band, p.ref_freq_Hz, p.ref_level_Vrms,
+                 {**table, "esl_H": -1e-9}, "parts.toml part BD-1006")
