@@ -107,7 +107,7 @@ class WidebandFit:
         J = np.zeros(p.size)
         for i in range(p.size):
             h = 1e-6 * (abs(p[i]) or 1e-12)
-            q = p.copy()
+            q = np.array(p, dtype=float)
             q[i] += h
             J[i] = (fn(q) - base) / h
         return float(math.sqrt(max(J @ self.covariance @ J, 0.0)))
