@@ -47,6 +47,7 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         for r in done_rows:
             self._measured.setdefault(r["sample_id"], []).append(r)
         self._ref_temp = None
+        self._dwell_readings: list = []  # (time, (C_F, D, Rs_ohm) or None) of the last dwell
         self._raw = {"meter": inst.meter, "supply": inst.supply, "scanner": inst.scanner,
                      "thermometer": inst.thermometer}
         self._links = self._link_counts()

@@ -23,6 +23,7 @@ Layout (every field in SI units; see data/plans/demo.toml):
     [settle]                         # with dwell = "settle" (benchkit/sweep/settle.py)
     max_drift_pct_per_s = 0.01; max_dwell_s = 60.0   # and/or a residual bound instead:
     max_residual_pct_of_reading = 0.1; max_residual_pct_of_C0 = 0.05; max_tau_s = 20.0
+    max_prediction_u_pct_of_C0 = 0.1 # or: record the settled value predicted from the transient
     min_dwell_s = 0.5; window_s = 2.0; read_interval_s = 0.0
     [adaptive]                       # optional: adaptive bias steps (benchkit/sweep/adaptive.py)
     target_band_pct_of_C0 = 0.5; max_points = 40; coarse_points = 7
@@ -386,8 +387,12 @@ def _parse_settle(raw: Mapping, where: str) -> dict:
         "max_residual_pct_of_C0": f.number("max_residual_pct_of_C0", default=None,
                                            positive=True),
         "max_tau_s": f.number("max_tau_s", default=20.0, positive=True),
+        # or read the settled value off the relaxation fit (settle.py, prediction rule)
+        "max_prediction_u_pct_of_C0": f.number("max_prediction_u_pct_of_C0", default=None,
+                                               positive=True),
     }
-    no_residual = st["max_residual_pct_of_reading"] is None and st["max_residual_pct_of_C0"] is None
+    no_residual = (st["max_residual_pct_of_reading"] is None and st["max_residual_pct_of_C0"] is None
+                   and st["max_prediction_u_pct_of_C0"] is None)
     st["max_drift_pct_per_s"] = f.number("max_drift_pct_per_s", required=no_residual,
                                          positive=True)
     st.update({
@@ -397,6 +402,8 @@ def _parse_settle(raw: Mapping, where: str) -> dict:
         "read_interval_s": f.number("read_interval_s", default=0.0, lo=0.0),
     })
     f.done()
+    if st["max_prediction_u_pct_of_C0"] is None:
+        del st["max_prediction_u_pct_of_C0"]  # plans without it keep their digest
     if st["min_dwell_s"] > st["max_dwell_s"]:
         raise UserError(f"{where}: field 'settle.min_dwell_s': {st['min_dwell_s']:g} s is above "
                         f"max_dwell_s ({st['max_dwell_s']:g} s); lower it or raise max_dwell_s")

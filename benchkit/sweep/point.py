@@ -1,5 +1,12 @@
 """One bias point: reach it, dwell by the policy, read the meter, read back the supply, the
-level across the part and the temperature, and build the row that goes into points.csv."""
+level across the part and the temperature, and build the row that goes into points.csv.
+
+With a policy that predicts the settled value (benchkit/sweep/settle.py, prediction rule) the
+readings of the dwell are the point's readings: no more are taken after it. C_F is then the
+predicted settled value and C_std_F is its standard uncertainty times sqrt(n_readings), so
+that C_std_F/sqrt(n_readings), the per-point sigma every reader of points.csv uses, is the
+prediction's uncertainty (flag "predicted"). D and Rs_ohm are the means of those readings.
+"""
 
 from __future__ import annotations
 
@@ -21,9 +28,16 @@ class PointMeasurement:
         self._note_recoveries()  # before this point (configuring, ramping down): events only
         self.supply.ramp_to(p.bias_V, plan.max_ramp_V_per_s, self.gclock)
         t_reached = self.clock.now()
+        self._dwell_readings = []
         settle = self.policy.wait(self.gclock, lambda: self._probe(cond))
         values, times, overload = [], [], False
-        for _ in range(plan.n_readings):
+        pred = getattr(settle, "prediction", None)
+        if pred is not None:  # the readings the prediction was made from
+            t_fit = settle.fit_from_s
+            times = [t for t, v in self._dwell_readings if v is not None and t >= t_fit]
+            values = [v for t, v in self._dwell_readings if v is not None and t >= t_fit]
+            overload = any(v is None for _, v in self._dwell_readings)
+        for _ in range(0 if pred is not None else plan.n_readings):
             r = self.meter.measure()
             t = self.clock.now()
             if r.overload:
@@ -51,6 +65,9 @@ class PointMeasurement:
         arr = np.array(values) if values else np.empty((0, 3))
         C = float(arr[:, 0].mean()) if len(arr) else None
         C_std = float(arr[:, 0].std(ddof=1)) if len(arr) >= 2 else None
+        if pred is not None and len(arr):
+            C, C_std = pred.C_inf_F, pred.u_C_inf_F * math.sqrt(len(arr))
+            flags.append("predicted")
         drift = None
         if len(arr) >= 2 and times[-1] > times[0] and C:
             slope = np.polyfit(np.array(times) - times[0], arr[:, 0], 1)[0]
@@ -88,10 +105,14 @@ class PointMeasurement:
         }
 
     def _probe(self, cond) -> float:
+        """One reading for the dwell policy (kept, with its time, for a predicting one)."""
         r = self.meter.measure()
         if r.overload:
+            self._dwell_readings.append((self.clock.now(), None))
             return math.nan  # a dwell policy leaves it out
-        return _convert(r.primary, r.secondary, cond.function, cond.freq_Hz)[0]
+        v = _convert(r.primary, r.secondary, cond.function, cond.freq_Hz)
+        self._dwell_readings.append((self.clock.now(), v))
+        return v[0]
 
 
 

@@ -45,6 +45,8 @@ FLAGS = {
     "resumed": "first point measured after the run was resumed; the part's bias history was restarted",
     "max_dwell": "settle detection reached settle.max_dwell_s before its settle rule was met "
                  "(drift rate or predicted residual): the point was read while the part may still drift",
+    "predicted": "C_F is the settled value predicted from the relaxation fit of the dwell's readings "
+                 "(settle.max_prediction_u_pct_of_C0); C_std_F/sqrt(n_readings) is its standard uncertainty",
     "retried": "an instrument exchange of this point needed a retry (no reply, a garbled or late reply, "
                "or a reconnect after a dropped link); run.json events 'link_recovered' say which",
 }

@@ -51,6 +51,17 @@ starts at 0 V; the engine calls start_sample() before each sample). A C(V) targe
 set in percent of C0, and under bias the reading may be a tenth of C0: there a bound in
 percent of the reading asks ten times more than the target needs. Until the first point has
 settled the reading itself stands in for C0.
+
+Prediction rule (`max_prediction_u_pct_of_C0`). Instead of waiting for the relaxation to
+die away, read its end off the fit (benchkit/sweep/prediction.py): the readings from
+`min_dwell_s` on are fitted with C_inf + A*exp(-t/tau), tau shared with the sample's earlier
+transients (a property of the dielectric), and the part counts as settled as soon as the
+standard uncertainty of the predicted C_inf is within the threshold, in percent of C0 (the
+sample's first prediction). The point then records the prediction, not a mean of readings:
+C_F = C_inf, with its uncertainty in C_std_F (see benchkit/sweep/point.py). A point costs
+min_dwell_s plus the few readings the fit needs, about one relaxation time or less once the
+sample's first steps have shown its tau. Each finished transient joins the sample's tau
+profile; start_sample() clears it.
 """
 
 from __future__ import annotations
@@ -61,6 +72,8 @@ from typing import Callable
 
 import numpy as np
 from scipy import stats
+
+from benchkit.sweep.prediction import MIN_PREDICT_READINGS, Prediction, TauProfile
 
 MIN_WINDOW_READINGS = 5
 DRIFT_MARGIN_SE = 1.0  # standard errors of the drift estimate added before comparing
@@ -74,6 +87,7 @@ RESIDUAL_PROFILE_DSSR = 9.0  # taus kept: SSR <= SSR_min + this * variance (~3 s
 # rule is checked at every reading, so a 2-sigma interval would be fooled now and then)
 RESIDUAL_TAU_MIN_FRAC = 0.05  # shortest tau tried, as a fraction of the readings' span
 RESIDUAL_TAU_GRID = 40
+MIN_TAU_FRACTION_OF_MIN_DWELL = 0.25  # the prediction's shortest tau (prediction.py)
 
 
 @dataclass(frozen=True)
@@ -165,11 +179,14 @@ class SettleResult(float):
     with the final drift estimate and whether the maximum dwell was hit."""
 
     def __new__(cls, settle_s: float, drift: DriftEstimate | None, hit_max_dwell: bool,
-                n_readings: int):
+                n_readings: int, prediction: Prediction | None = None,
+                fit_from_s: float | None = None):
         obj = super().__new__(cls, settle_s)
         obj.drift = drift
         obj.hit_max_dwell = bool(hit_max_dwell)
         obj.n_readings = int(n_readings)
+        obj.prediction = prediction  # the predicted settled value (prediction rule), or None
+        obj.fit_from_s = fit_from_s  # clock time of the first reading the prediction used
         return obj
 
     @property
@@ -202,11 +219,12 @@ class SettleDetector:
     def __init__(self, max_drift_pct_per_s: float | None, max_dwell_s: float,
                  min_dwell_s: float = 0.5, window_s: float = 2.0, read_interval_s: float = 0.0,
                  max_residual_pct_of_reading: float | None = None, max_tau_s: float = 20.0,
-                 max_residual_pct_of_C0: float | None = None):
+                 max_residual_pct_of_C0: float | None = None,
+                 max_prediction_u_pct_of_C0: float | None = None):
         if (max_drift_pct_per_s is None and max_residual_pct_of_reading is None
-                and max_residual_pct_of_C0 is None):
-            raise ValueError("settle: give max_drift_pct_per_s, max_residual_pct_of_reading or "
-                             "max_residual_pct_of_C0")
+                and max_residual_pct_of_C0 is None and max_prediction_u_pct_of_C0 is None):
+            raise ValueError("settle: give max_drift_pct_per_s, max_residual_pct_of_reading, "
+                             "max_residual_pct_of_C0 or max_prediction_u_pct_of_C0")
         checks = [("max_dwell_s", max_dwell_s), ("window_s", window_s), ("max_tau_s", max_tau_s)]
         if max_drift_pct_per_s is not None:
             checks.append(("max_drift_pct_per_s", max_drift_pct_per_s))
@@ -214,6 +232,8 @@ class SettleDetector:
             checks.append(("max_residual_pct_of_reading", max_residual_pct_of_reading))
         if max_residual_pct_of_C0 is not None:
             checks.append(("max_residual_pct_of_C0", max_residual_pct_of_C0))
+        if max_prediction_u_pct_of_C0 is not None:
+            checks.append(("max_prediction_u_pct_of_C0", max_prediction_u_pct_of_C0))
         for label, v in checks:
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
                 raise ValueError(f"settle: {label} must be a positive number, got {v!r}")
@@ -229,7 +249,11 @@ class SettleDetector:
                                             else float(max_residual_pct_of_reading))
         self.max_residual_pct_of_C0 = (None if max_residual_pct_of_C0 is None
                                        else float(max_residual_pct_of_C0))
+        self.max_prediction_u_pct_of_C0 = (None if max_prediction_u_pct_of_C0 is None
+                                           else float(max_prediction_u_pct_of_C0))
         self.max_tau_s = float(max_tau_s)
+        self.tau_profile = TauProfile(self.max_tau_s, MIN_TAU_FRACTION_OF_MIN_DWELL
+                                      * float(min_dwell_s))  # the sample's transients so far
         self.reference_C_F: float | None = None  # the sample's C0 (start_sample, wait)
         self.max_dwell_s = float(max_dwell_s)
         self.min_dwell_s = float(min_dwell_s)
@@ -248,11 +272,20 @@ class SettleDetector:
         return cls(settle.get("max_drift_pct_per_s"), settle["max_dwell_s"],
                    settle["min_dwell_s"], settle["window_s"], settle["read_interval_s"],
                    settle.get("max_residual_pct_of_reading"), settle.get("max_tau_s", 20.0),
-                   settle.get("max_residual_pct_of_C0"))
+                   settle.get("max_residual_pct_of_C0"),
+                   settle.get("max_prediction_u_pct_of_C0"))
+
+    @property
+    def predicts(self) -> bool:
+        """True when the point records the predicted settled value (prediction rule)."""
+        return self.max_prediction_u_pct_of_C0 is not None
 
     def start_sample(self) -> None:
-        """A new sample: its first settled reading becomes the C0 of max_residual_pct_of_C0."""
+        """A new sample: its first settled reading becomes its C0; a new dielectric, so its
+        relaxation time is learnt afresh."""
         self.reference_C_F = None
+        self.tau_profile = TauProfile(self.max_tau_s,
+                                      MIN_TAU_FRACTION_OF_MIN_DWELL * self.min_dwell_s)
 
     def settled(self, est: DriftEstimate) -> bool:
         """The drift rule: the drift, one standard error to the bad side, is within the
@@ -283,6 +316,8 @@ class SettleDetector:
 
     def wait(self, clock, probe: Callable[[], float]) -> SettleResult:
         """Read until settled or max_dwell_s has passed since the call; return how long it took."""
+        if self.predicts:
+            return self._wait_predicting(clock, probe)
         t0 = clock.now()
         self.last_residual = None
         times: list[float] = []
@@ -311,6 +346,48 @@ class SettleDetector:
                 clock.sleep(IDLE_READ_INTERVAL_S)  # a reading that took no clock time
             t_prev = t
 
+    def _wait_predicting(self, clock, probe: Callable[[], float]) -> SettleResult:
+        """The prediction rule (module docstring): read until the predicted settled value is
+        known well enough, or max_dwell_s; the transient then joins the sample's tau profile."""
+        t0 = clock.now()
+        lo = t0 + self.min_dwell_s - 1e-9
+        times: list[float] = []
+        values: list[float] = []
+        pred: Prediction | None = None
+        est: DriftEstimate | None = None
+        t_prev = t0
+        hit_max = False
+        while True:
+            if clock.now() - t0 >= self.max_dwell_s:
+                hit_max = True
+                break
+            if clock.now() < lo:  # charging through the fixture: nothing to read yet
+                clock.sleep(lo - clock.now())
+                continue
+            c = probe()
+            t = clock.now()
+            if c is not None and math.isfinite(c) and 0 < c < 1e30:
+                times.append(t)
+                values.append(float(c))
+            if len(times) >= MIN_PREDICT_READINGS and times[-1] > times[0]:
+                pred = self.tau_profile.predict(times, values)
+                est = window_drift(times, values)
+                ref = self.reference_C_F or pred.C_inf_F
+                if 100.0 * pred.u_C_inf_F / ref <= self.max_prediction_u_pct_of_C0:
+                    break
+            if self.read_interval_s:
+                clock.sleep(self.read_interval_s)
+            elif t <= t_prev:
+                clock.sleep(IDLE_READ_INTERVAL_S)  # a reading that took no clock time
+            t_prev = t
+        if pred is not None:
+            self.tau_profile.add(times, values)
+            if self.reference_C_F is None and not hit_max:
+                self.reference_C_F = pred.C_inf_F
+        self.last = SettleResult(clock.now() - t0, est, hit_max, len(times), pred,
+                                 times[0] if times else None)
+        return self.last
+
     def _estimate(self, times, values, now) -> DriftEstimate | None:
         """Drift over the last window_s of readings, once the readings span a full window."""
         if not times or times[-1] - times[0] < self.window_s * (1 - 1e-9):
@@ -324,6 +401,6 @@ class SettleDetector:
         return window_drift(t, c)
 
 
-__all__ = ["SettleDetector", "SettleResult", "DriftEstimate", "window_drift",
+__all__ = ["SettleDetector", "Prediction", "SettleResult", "DriftEstimate", "window_drift",
            "ResidualEstimate", "relaxation_residual", "MIN_FIT_READINGS",
            "MAX_DWELL_FLAG", "MIN_WINDOW_READINGS", "DRIFT_MARGIN_SE"]

@@ -26,9 +26,10 @@ FX05 = {"sample_id": "FX-05", "part_id": "BD-1005", "channel": 5}  # 22 uF 10 V 
 
 
 def plan(sample, bias, settle=None, adaptive=None, **measure):
+    settle = {k: v for k, v in dict(SETTLE, **(settle or {})).items() if v is not None}
     raw = {"name": "t", "samples": [sample], "bias": bias,
            "measure": {"dwell": "settle", "n_readings": 3, **measure},
-           "settle": dict(SETTLE, **(settle or {})), "limits": dict(LIMITS)}
+           "settle": settle, "limits": dict(LIMITS)}
     if adaptive is not None:
         raw["adaptive"] = adaptive
     return parse_plan(raw, "test plan")
@@ -178,3 +179,28 @@ def test_fixed_dwell_plans_are_unchanged_by_the_new_tables():
     assert p.settle is None and p.adaptive is None and "settle" not in p.data
     with pytest.raises(UserError, match="'settle': given but measure.dwell"):
         parse_plan(dict(raw, settle=dict(SETTLE)), "plan.toml")
+
+
+def test_predicting_settle_records_the_predicted_settled_value_and_its_uncertainty(tmp_path):
+    # the prediction rule (benchkit/sweep/settle.py): each row is the settled value read off
+    # the relaxation fit of the dwell's readings; checked against the simulated part's own
+    # noise-free settled curve (SimBench.true_settled_C_F), not against the detector
+    p = plan(FX03, {"start_V": 0.0, "stop_V": 4.0, "step_V": 1.0},
+             settle={"max_drift_pct_per_s": None, "max_prediction_u_pct_of_C0": 0.1,
+                     "min_dwell_s": 1.0})
+    clock = VirtualClock()
+    with demo_bench(clock=clock) as bench:
+        res = run_sweep(bench, p, tmp_path / "run", clock, parts=PARTS, handle_signals=False)
+        assert res.status == "complete" and safe(bench)
+        rows = read_rows(tmp_path / "run")
+        assert rows
+        for r in rows:
+            assert "predicted" in r["flags"].split(";")
+            n = int(r["n_readings"])
+            assert n >= 5  # the readings of the fit are the point's readings
+            u = float(r["C_std_F"]) / math.sqrt(n)
+            truth = bench.true_settled_C_F(3, float(r["bias_set_V"]), "rising",
+                                           freq_Hz=float(r["freq_Hz"]),
+                                           ac_level_Vrms=float(r["ac_level_set_Vrms"]),
+                                           function=r["function"])
+            assert abs(float(r["C_F"]) - truth) <= 3.0 * u, r
