@@ -49,15 +49,21 @@ def format_table(results: dict) -> str:
         lines.append("")
     ov = b.get("overhead")
     if ov is not None:
-        lines.append("Software overhead per measured point (virtual clock: no dwell)")
+        lines.append("Software overhead per measured point (virtual clock: no dwell), like with like")
         if "error" in ov:
             lines.append(f"  FAILED: {ov['error']}")
         else:
-            lines.append(f"  bare pyvisa-py *IDN? round trip (median of {ov['idn_queries']}): "
-                         f"{ov['idn_round_trip_s'] * 1e6:.0f} us")
-            lines.append(f"  engine wall time per point ({ov['engine_points']} points, "
-                         f"{ov['n_readings']} readings each): {ov['engine_point_wall_s'] * 1e3:.2f} ms")
-            lines.append(f"  ratio: {ov['overhead_ratio']:.0f} round trips per point")
+            lines.append(f"  engine, {ov['points']} points of {ov['exchanges_per_point']:.0f} exchanges "
+                         f"(median of {ov['rounds']} rounds): {ov['engine_point_wall_s'] * 1e3:.2f} ms")
+            lines.append(f"  the same exchanges bare through pyvisa + one fsync'd row: "
+                         f"{ov['bare_point_wall_s'] * 1e3:.2f} ms; engine/bare "
+                         f"{ov['engine_over_bare']:.2f} (target <= {ov['target_engine_over_bare']:g})")
+            if ov.get("pymeasure_point_wall_s") is not None:
+                lines.append(f"  the same exchanges as a PyMeasure procedure, fsync per row: "
+                             f"{ov['pymeasure_point_wall_s'] * 1e3:.2f} ms; engine/PyMeasure "
+                             f"{ov['engine_over_pymeasure']:.2f} (target < 1)")
+            else:
+                lines.append(f"  PyMeasure: skipped ({ov.get('pymeasure_skipped')})")
         lines.append("")
     fs = b.get("fits")
     if fs is not None:
