@@ -19,6 +19,7 @@ test: $(STAMP)
 	$(PY) -m pytest
 
 bench: $(STAMP)
+	$(PY) -m pip install --quiet -e '.[test,bench]'
 	$(PY) -m benchkit.benchmarks --out out/bench
 
 clean:

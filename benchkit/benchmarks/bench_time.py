@@ -6,9 +6,9 @@ and TCP), two sweeps over the same range, 0 V to the top (the rated voltage roun
 the uniform step) and back:
 
 - uniform: 0.5 V steps up and down, a fixed 5 s dwell, 3 readings per point;
-- adaptive: settle detection (the plan's [settle], SETTLE: by the relaxation residual still
-  to come, in percent of C0) and adaptive steps (the plan's [adaptive], ADAPTIVE), 3
-  readings per point.
+- adaptive: settle detection (the plan's [settle], SETTLE: the settled value predicted from
+  the relaxation fit, its uncertainty in percent of C0) and adaptive steps (the plan's
+  [adaptive], ADAPTIVE); the dwell's readings are the point's readings.
 
 Both are fitted per branch with model "auto" (benchkit.sweep.adaptive.fit_branch: fits.fit_sweep
 with pooled per-point sigma) and compared with the bench's true settled curve over each fitted
@@ -34,11 +34,13 @@ UNIFORM_STEP_V = 0.5
 UNIFORM_DWELL_S = 5.0
 N_READINGS = 3
 LIMITS = {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 0.0}
-# One adaptive plan for every part. Settle detection by the residual left in the reading
-# (benchkit/sweep/settle.py): at most 0.2 % of C0 still to come when a point is read, 40 % of the
-# 0.5 % target, the rest left for the fit; min_dwell_s 1 s for the part to charge through the
-# fixture's feed resistor (several R*C for the largest demo part) before the fit's readings.
-SETTLE = {"max_residual_pct_of_C0": 0.2, "max_tau_s": 20.0, "max_dwell_s": 60.0,
+# One adaptive plan for every part. Settle detection by prediction (benchkit/sweep/settle.py,
+# prediction rule): each point records the settled value read off the relaxation fit of its
+# dwell, once its standard uncertainty is within 0.15 % of C0 (the 0.5 % target is a k = 2
+# band of the fitted curve, which averages over the points); min_dwell_s 1 s for the part to
+# charge through the fixture's feed resistor (several R*C for the largest demo part) before
+# the fit's readings, as a charging tail would pass for a fast relaxation.
+SETTLE = {"max_prediction_u_pct_of_C0": 0.15, "max_tau_s": 20.0, "max_dwell_s": 60.0,
           "min_dwell_s": 1.0, "window_s": 1.0}
 ADAPTIVE = {"target_band_pct_of_C0": 0.5, "max_points": 40, "coarse_points": 7}
 TARGET_RATIO = 0.25

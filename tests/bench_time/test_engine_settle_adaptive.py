@@ -199,7 +199,9 @@ def test_predicting_settle_records_the_predicted_settled_value_and_its_uncertain
             n = int(r["n_readings"])
             assert n >= 5  # the readings of the fit are the point's readings
             u = float(r["C_std_F"]) / math.sqrt(n)
-            truth = bench.true_settled_C_F(3, float(r["bias_set_V"]), "rising",
+            falling = r["branch"] == "falling"  # after the turn at the top, 4 V
+            truth = bench.true_settled_C_F(3, float(r["bias_set_V"]), r["branch"],
+                                           turn_V=4.0 if falling else None,
                                            freq_Hz=float(r["freq_Hz"]),
                                            ac_level_Vrms=float(r["ac_level_set_Vrms"]),
                                            function=r["function"])
