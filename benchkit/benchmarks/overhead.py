@@ -36,6 +36,7 @@ import threading
 import time
 from pathlib import Path
 
+from benchkit.atomic import write_text_atomic
 from benchkit.benchmarks.bench_time import top_V, uniform_plan
 from benchkit.commands.sim import demo_bench
 
@@ -164,7 +165,9 @@ def replay_bare(resources: dict, recorded, out: Path, clock) -> float:
                 continue
             opened[res] = rm.open_resource(res, read_termination=p.read_termination,
                                            write_termination=p.write_termination, timeout=5000)
-        fd = os.open(out, os.O_WRONLY | os.O_CREAT | os.O_TRUNC | os.O_APPEND, 0o644)
+        # a scratch file of its own (deleted on close): only the write and the fsync count
+        fh = tempfile.TemporaryFile(dir=out.parent, buffering=0)
+        fd = fh.fileno()
         try:
             _bare(opened, clock, before)
             t0 = time.perf_counter()
@@ -175,7 +178,7 @@ def replay_bare(resources: dict, recorded, out: Path, clock) -> float:
             dt = time.perf_counter() - t0
             _bare(opened, clock, after)
         finally:
-            os.close(fd)
+            fh.close()
     finally:
         for r in opened.values():
             r.close()
@@ -331,7 +334,7 @@ def run(out_dir: Path, quick: bool = False, log=print) -> dict:
         engine_sweep(bench, plan, base / "profiled", profile=prof)
     buf = io.StringIO()
     pstats.Stats(prof, stream=buf).sort_stats("tottime").print_stats(PROFILE_TOP)
-    (base / "engine-profile.txt").write_text(buf.getvalue(), encoding="utf-8")
+    write_text_atomic(base / "engine-profile.txt", buf.getvalue())
     eng, bare = statistics.median(engine_s), statistics.median(bare_s)
     pm = statistics.median(pm_s) if pm_s else None
     res = {
