@@ -90,11 +90,13 @@ def load_catalogue(path: str | Path | None = None) -> dict[str, PartSpec]:
 
 def _parse_part(ck: Checker, e: dict, where: str) -> PartSpec:
     ck.known(e, _PART_FIELDS, where)
-    pid = ck.string(e, "id", where)
+    pid = ck.string(e, "id", where, max_len=64)
     if any(c.isspace() for c in pid):
         raise ck.field_fail(where, "id", "must not contain spaces", pid)
     description = ck.string(e, "description", where)
     nominal = ck.number(e, "nominal_C_F", where)
+    if not 1e-15 <= nominal <= 10.0:  # 1 fF .. 10 F: beyond any ceramic capacitor [common practice]
+        raise ck.field_fail(where, "nominal_C_F", "must be from 1e-15 to 10 F", nominal)
     tol = ck.string(e, "tolerance", where)
     if tol not in TOLERANCE_LETTERS:
         raise ck.field_fail(where, "tolerance", f"must be an IEC 60062 letter "
@@ -103,6 +105,8 @@ def _parse_part(ck: Checker, e: dict, where: str) -> PartSpec:
         raise ck.field_fail(where, "tolerance", "B, C and D are for values below 10 pF; use "
                             "a percentage letter (F G J K M Z)", tol)
     rated = ck.number(e, "rated_V", where)
+    if rated > 1000.0:  # the sweep's bias bound (benchkit/sweep/plan.py MAX_BIAS_V)
+        raise ck.field_fail(where, "rated_V", "must be at most 1000 V", rated)
     code = ck.string(e, "class_code", where)
     try:
         parse_class_code(code)

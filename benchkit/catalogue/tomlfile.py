@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import difflib
 import math
-import tomllib
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -20,7 +19,7 @@ class PartsFileError(ValueError):
 
 def _fmt(v: Any) -> str:
     if isinstance(v, str):
-        return repr(v)
+        return repr(v) if len(v) <= 60 else repr(v[:57]) + "..."
     if isinstance(v, (list, tuple)):
         return "an array"
     if isinstance(v, dict):
@@ -52,17 +51,26 @@ class Checker:
                 near = difflib.get_close_matches(key, allowed, n=1)
                 hint = f"; did you mean {prefix + near[0]!r}?" if near else \
                     f"; known fields: {', '.join(allowed)}"
-                raise self.fail(where, f"unknown field {prefix + key!r}{hint}")
+                raise self.fail(where, f"unknown field {_fmt(prefix + key)}{hint}")
 
     def get(self, table: Mapping[str, Any], name: str, where: str, prefix: str = "") -> Any:
         if name not in table:
             raise self.fail(where, f"missing field {prefix + name!r}; add it")
         return table[name]
 
-    def string(self, table, name, where, prefix="") -> str:
+    def string(self, table, name, where, prefix="", max_len: int = 4096) -> str:
         v = self.get(table, name, where, prefix)
         if not isinstance(v, str) or not v.strip():
             raise self.field_fail(where, prefix + name, "must be a non-empty string", v)
+        if len(v) > max_len:
+            raise self.field_fail(where, prefix + name, f"is {len(v)} characters, at most "
+                                  f"{max_len} allowed", show=False)
+        from benchkit.bounded import control_char
+
+        bad = control_char(v)
+        if bad is not None:
+            raise self.field_fail(where, prefix + name, f"contains the control character {bad}; "
+                                  "retype it", show=False)
         return v
 
     def number(self, table, name, where, prefix="", kind="positive") -> float:
@@ -115,8 +123,10 @@ def read_toml(path: Path | str) -> dict:
                              "TOML file") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise PartsFileError(f"{p}: cannot read: {exc}".replace("\n", " ")) from None
+    from benchkit.bounded import loads_toml
+    from benchkit.errors import UserError
+
     try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        # tomllib's message ends with "(at line L, column C)".
-        raise PartsFileError(f"{p}: TOML syntax error: {exc}".replace("\n", " ")) from None
+        return loads_toml(text, str(p), "catalogue file")
+    except UserError as exc:
+        raise PartsFileError(str(exc)) from None

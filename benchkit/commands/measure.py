@@ -35,6 +35,9 @@ def register(subparsers) -> None:
     p.add_argument("--plan", type=Path, metavar="PLAN.toml", help="sweep plan (see data/plans/demo.toml)")
     p.add_argument("--out", type=Path, metavar="RUN_DIR", help="new run directory to create")
     p.add_argument("--resume", type=Path, metavar="RUN_DIR", help="continue an interrupted run from its last complete point")
+    p.add_argument("--yes", action="store_true",
+                   help="agree beforehand to a plan that goes above a part's rated voltage "
+                        "(limits.allow_above_rated = true); otherwise asked at the terminal")
     p.add_argument("--parts", type=Path, metavar="FILE", help="parts catalogue (rated voltage, class, nominal C); default: the demo parts")
     p.add_argument("--io-timeout-s", type=float, metavar="S", help="instrument reply timeout in seconds (default: the profile's, else 5)")
     sim = p.add_argument_group("simulated bench (with --sim)")
@@ -112,14 +115,16 @@ def run(args) -> int:
         bench = _make_sim(args.lot, args.seed, args.fault, clock)
         with bench:
             result = sweep.run_sweep(bench, plan, args.out, clock, progress, parts=parts,
-                                     io_timeout_s=args.io_timeout_s, extra_record=record)
+                                     io_timeout_s=args.io_timeout_s, extra_record=record,
+                                     confirm_above_rated=_confirmation(args))
     else:
         from benchkit.sweep.benchfile import load_bench
 
         bench_file = load_bench(args.bench)
         result = sweep.run_sweep(bench_file, plan, args.out, clock, progress, parts=parts,
                                  io_timeout_s=args.io_timeout_s, extra_record=record,
-                                 before_output=_print_safety_note)
+                                 before_output=_print_safety_note,
+                                 confirm_above_rated=_confirmation(args))
     return _report(result)
 
 
@@ -138,12 +143,34 @@ def _resume(args, progress) -> int:
         clock = _make_clock(bool(sim.get("virtual_clock")), sim.get("clock_speed"))
         bench = _make_sim(bool(sim.get("lot")), int(sim.get("seed") or 0), [], clock)  # faults are not re-armed
         with bench:
-            result = sweep.resume_sweep(args.resume, bench, clock, progress, plan=plan, io_timeout_s=args.io_timeout_s)
+            result = sweep.resume_sweep(args.resume, bench, clock, progress, plan=plan, io_timeout_s=args.io_timeout_s,
+                                        confirm_above_rated=_confirmation(args))
     else:
         bench_file = load_bench(args.bench) if args.bench is not None else sweep.stored_bench(meta)
         result = sweep.resume_sweep(args.resume, bench_file, None, progress, plan=plan,
-                                    io_timeout_s=args.io_timeout_s, before_output=_print_safety_note)
+                                    io_timeout_s=args.io_timeout_s, before_output=_print_safety_note,
+                                    confirm_above_rated=_confirmation(args))
     return _report(result)
+
+
+def _confirmation(args):
+    """--yes, or a question at the terminal; no terminal and no --yes means no."""
+    if args.yes:
+        return True
+    if not (sys.stdin.isatty() and sys.stderr.isatty()):
+        return False
+
+    def ask(lines: list[str]) -> bool:
+        for line in lines:
+            print(f"benchkit measure: {line}", file=sys.stderr)
+        print("benchkit measure: the plan goes ABOVE the rated voltage of the samples marked; "
+              "type 'yes' to go on: ", end="", file=sys.stderr, flush=True)
+        try:
+            return sys.stdin.readline().strip().lower() == "yes"
+        except (OSError, KeyboardInterrupt):
+            return False
+
+    return ask
 
 
 def _print_safety_note() -> None:

@@ -9,13 +9,13 @@ from __future__ import annotations
 
 import contextlib
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
+from benchkit.bounded import check_id, loads_toml, safe_repr, unknown_key
 from benchkit.errors import UserError
-from benchkit.sweep.plan import SampleRef
+from benchkit.sweep.plan import MAX_CHANNEL, SampleRef
 from instruments.roles import DEFAULT_PROFILES, ROLES
 
 
@@ -46,6 +46,9 @@ class BenchFile:
         }
 
 
+_CHANNEL_KEYS = ("channel", "sample_id", "part_id", "hours_since_heat_h")
+
+
 def load_bench(path: str | Path) -> BenchFile:
     p = Path(path)
     try:
@@ -58,18 +61,17 @@ def load_bench(path: str | Path) -> BenchFile:
 
 
 def parse_bench_text(text: str, where: str, base_dir: Path | None = None) -> BenchFile:
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise UserError(f"{where}: not valid TOML: {exc}; fix the bench file") from None
+    raw = loads_toml(text, where, "bench file")
     return bench_from_dict(raw, where, base_dir)
 
 
 def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = None) -> BenchFile:
     """Validate a bench mapping (TOML layout, or the 'bench' record of run.json)."""
-    unknown = sorted(set(raw) - {"instrument", "instruments", "channel", "channels", "source", "kind"})
+    if not isinstance(raw, Mapping):
+        raise UserError(f"{where}: a bench must be a table with [instrument.*] and [[channel]]")
+    unknown = sorted(set(raw) - {"instrument", "instruments", "channel", "channels", "source", "kind"}, key=str)
     if unknown:
-        raise UserError(f"{where}: unknown table '{unknown[0]}' (known: instrument, channel)")
+        raise unknown_key(where, unknown[0], ("instrument", "channel"), "table")
     inst_raw = raw.get("instrument", raw.get("instruments"))
     if not isinstance(inst_raw, Mapping):
         raise UserError(f"{where}: missing [instrument.meter], [instrument.supply], [instrument.scanner], [instrument.thermometer]")
@@ -78,25 +80,27 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
         t = inst_raw.get(role)
         if not isinstance(t, Mapping):
             raise UserError(f"{where}: missing table [instrument.{role}] with resource = \"...\"")
-        extra = sorted(set(t) - {"resource", "profile", "timeout_s"})
+        extra = sorted(set(t) - {"resource", "profile", "timeout_s"}, key=str)
         if extra:
-            raise UserError(f"{where}: [instrument.{role}]: unknown field '{extra[0]}' (known: resource, profile, timeout_s)")
+            raise unknown_key(f"{where}: [instrument.{role}]", extra[0], ("resource", "profile", "timeout_s"))
         res = t.get("resource")
-        if not isinstance(res, str) or not res.strip():
+        if not isinstance(res, str) or not res.strip() or len(res) > 256:
             raise UserError(f"{where}: [instrument.{role}]: field 'resource' must be a VISA resource string, e.g. TCPIP0::127.0.0.1::5025::SOCKET")
         check_resource_string(res, f"{where}: [instrument.{role}]")
         prof = t.get("profile", DEFAULT_PROFILES[role])
-        if not isinstance(prof, str) or not prof.strip():
+        if not isinstance(prof, str) or not prof.strip() or len(prof) > 4096 or "\x00" in prof:
             raise UserError(f"{where}: [instrument.{role}]: field 'profile' must be a profile name or a .toml path")
         if (prof.endswith(".toml") or "/" in prof) and base_dir is not None and not Path(prof).is_absolute():
             prof = str((base_dir / prof).resolve())
         tmo = t.get("timeout_s")
-        if tmo is not None and (isinstance(tmo, bool) or not isinstance(tmo, (int, float)) or tmo <= 0):
-            raise UserError(f"{where}: [instrument.{role}]: field 'timeout_s' must be a positive number of seconds")
+        if tmo is not None and (isinstance(tmo, bool) or not isinstance(tmo, (int, float))
+                                or not 0 < tmo <= 600):
+            raise UserError(f"{where}: [instrument.{role}]: field 'timeout_s' must be a number of seconds "
+                            "above 0 and at most 600")
         instruments[role] = InstrumentRef(role, res.strip(), prof, None if tmo is None else float(tmo))
-    extra_roles = sorted(set(inst_raw) - set(ROLES))
+    extra_roles = sorted(set(inst_raw) - set(ROLES), key=str)
     if extra_roles:
-        raise UserError(f"{where}: unknown instrument role '{extra_roles[0]}' (known: {', '.join(ROLES)})")
+        raise unknown_key(where, extra_roles[0], ROLES, "instrument role")
     chans_raw = raw.get("channel", raw.get("channels", []))
     if not isinstance(chans_raw, list):
         raise UserError(f"{where}: 'channel' must be an array of [[channel]] tables")
@@ -106,17 +110,22 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
     for i, c in enumerate(chans_raw, 1):
         if not isinstance(c, Mapping):
             raise UserError(f"{where}: channel entry {i}: must be a table with channel, sample_id, part_id")
+        extra = sorted(set(c) - set(_CHANNEL_KEYS), key=str)
+        if extra:
+            raise unknown_key(f"{where}: channel entry {i}", extra[0], _CHANNEL_KEYS)
         ch, sid, pid = c.get("channel"), c.get("sample_id"), c.get("part_id")
-        if isinstance(ch, bool) or not isinstance(ch, int) or ch < 1:
-            raise UserError(f"{where}: channel entry {i}: field 'channel' must be a positive whole number")
+        if isinstance(ch, bool) or not isinstance(ch, int) or not 1 <= ch <= MAX_CHANNEL:
+            raise UserError(f"{where}: channel entry {i}: field 'channel' must be a whole number "
+                            f"from 1 to {MAX_CHANNEL} (got {safe_repr(ch)})")
         for name, v in (("sample_id", sid), ("part_id", pid)):
             if not isinstance(v, str) or not v.strip():
                 raise UserError(f"{where}: channel entry {i}: field '{name}' must be a non-empty string")
+            check_id(v, f"{where}: channel entry {i}", name)
         if ch in seen_ch or sid in seen_id:
             raise UserError(f"{where}: channel entry {i}: channel {ch} or sample {sid!r} appears twice")
         age = c.get("hours_since_heat_h")
         if age is not None and (isinstance(age, bool) or not isinstance(age, (int, float))
-                                or not math.isfinite(age) or age <= 0):
+                                or not math.isfinite(age) or not 0 < age <= 1e6):
             raise UserError(f"{where}: channel entry {i}: field 'hours_since_heat_h' must be a "
                             "positive number of hours since the last de-aging heat")
         seen_ch.add(ch)

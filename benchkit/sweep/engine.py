@@ -108,6 +108,10 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         if sw.adaptive is not None:
             self._lead_in(sw, p)
         row = self._measure_point(sw, p, resumed=resumed)
+        # an error the meter or thermometer raised while this point was read stops the run
+        # before the point is written (SCPI SYSTem:ERRor?), so no row follows an error unflagged
+        for drv in (self.meter, self.thermo):
+            drv.check_errors(after=f"measuring {p.sample_id} step {p.step_index}")
         if self._ref_temp is None:
             self._ref_temp = row["temp_C"]
         elif row["temp_C"] is not None and \
@@ -159,6 +163,12 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         self.supply.ramp_to(0.0, self.plan.max_ramp_V_per_s, self.gclock)
         self.supply.output_on = False
         self.output_on = False
+        self._note_recoveries()  # a fault on the final OUTPut OFF is recorded like any other
+        if self.supply.output_on:  # read back: logged as off only once it is
+            from instruments.drivers.errors import InstrumentError
+
+            raise InstrumentError("supply: still reports its output on after OUTPut OFF; "
+                                  "switch it off by hand", role="supply")
         self.output_off_done = True
         self.log.event(self.t_s(), "output_off", discharge_wait_s=wait_s)
         if wait_s > 0:

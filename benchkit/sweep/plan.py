@@ -43,11 +43,11 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable, Mapping
 
+from benchkit.bounded import check_free_text, check_id, did_you_mean, loads_toml, safe_repr
 from benchkit.catalogue import conditions as std
 from benchkit.errors import UserError
 
@@ -59,6 +59,22 @@ DWELL_POLICIES = ("fixed", "settle")  # "settle": benchkit/sweep/settle.py, need
 METER_FREQ_RANGE_HZ = (20.0, 2e6)  # generic command set, instruments/COMMANDS.md
 METER_LEVEL_RANGE_VRMS = (0.005, 2.0)
 _POINT_TOL_V = 1e-9
+
+# Physical bounds of every limit, checked when the plan is read (the bench's own ranges, from
+# its instrument profiles, are checked again before anything is opened: benchkit/sweep/limits.py).
+# Each is far outside what a capacitor bench needs and well inside what would make a limit
+# meaningless [common practice: bench supplies of 1e-4 .. a few A, ramps of mV/s .. tens of V/s,
+# dwell of seconds .. minutes, discharge waits of seconds .. minutes].
+MAX_BIAS_V = 1000.0
+CURRENT_LIMIT_RANGE_A = (1e-6, 10.0)
+RAMP_RANGE_V_PER_S = (1e-3, 100.0)
+MAX_DWELL_S = 3600.0  # any one wait: dwell, settle limits, discharge wait
+DISCHARGE_R_RANGE_OHM = (1.0, 1e9)
+SAFE_V_RANGE = (0.01, 50.0)  # below 0.01 V a bleed wait grows without bound; above 50 V is not "safe"
+BIAS_TOLERANCE_RANGE_V = (1e-6, 10.0)
+TEMP_TOLERANCE_RANGE_C = (0.01, 50.0)
+MAX_CHANNEL = 1024
+MAX_AGE_H = 1e6  # about 114 years since the last heat
 
 
 # --------------------------------------------------------------------------- data
@@ -223,15 +239,14 @@ def load_plan(path: str | Path, parts: Mapping[str, Any] | None = None) -> Plan:
     """Read and validate a plan file; with `parts`, also check its samples against them."""
     p = Path(path)
     try:
-        raw = tomllib.loads(p.read_text(encoding="utf-8"))
+        text = p.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise UserError(f"{p}: plan file not found; give an existing file to --plan") from None
     except OSError as exc:
         raise UserError(f"{p}: cannot read plan file ({exc.strerror})") from None
     except UnicodeDecodeError:
         raise UserError(f"{p}: plan file is not UTF-8 text") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise UserError(f"{p}: not valid TOML: {exc}; fix the plan file") from None
+    raw = loads_toml(text, str(p), "plan file")
     plan = parse_plan(raw, str(p))
     if parts is not None and plan.samples is not None:
         for s in plan.samples:
@@ -248,8 +263,9 @@ def parse_plan(raw: Mapping, where: str) -> Plan:
     version = top.integer("version", default=PLAN_VERSION, lo=1)
     if version != PLAN_VERSION:
         raise UserError(f"{where}: field 'version': plan version {version} is not known (this is {PLAN_VERSION})")
-    data["name"] = top.string("name", default=Path(where).stem if where else "plan")
-    data["description"] = top.string("description", default="")
+    data["name"] = check_free_text(top.string("name", default=Path(where).stem if where else "plan"),
+                                   where, "name")
+    data["description"] = check_free_text(top.string("description", default=""), where, "description")
     data["samples"] = _parse_samples(top.take("samples", default=None), where)
     data["bias"] = _parse_bias(top.table("bias", required=True), where)
     data["measure"] = _parse_measure(top.table("measure", required=True), where)
@@ -288,11 +304,11 @@ def _parse_samples(value: Any, where: str) -> list[dict] | None:
             raise UserError(f"{where}: field 'samples[{i}]': must be a table with sample_id, part_id, channel")
         f = _Fields(item, where, f"samples[{i}].")
         s = {
-            "sample_id": f.string("sample_id", required=True, nonempty=True),
-            "part_id": f.string("part_id", required=True, nonempty=True),
-            "channel": f.integer("channel", required=True, lo=1),
+            "sample_id": f.ident("sample_id"),
+            "part_id": f.ident("part_id"),
+            "channel": f.integer("channel", required=True, lo=1, hi=MAX_CHANNEL),
         }
-        age = f.number("hours_since_heat_h", positive=True)
+        age = f.number("hours_since_heat_h", positive=True, hi=MAX_AGE_H)
         if age is not None:  # verify refers readings to the claim's age with the aging law
             s["hours_since_heat_h"] = age
         f.done()
@@ -322,19 +338,19 @@ def _parse_bias(raw: Mapping, where: str) -> dict:
             raise UserError(f"{where}: field 'bias.points_V': must be a non-empty list of volts")
         clean = []
         for i, v in enumerate(pts):
-            if not _is_number(v) or v < 0:
+            if not _is_number(v) or v < 0 or v > MAX_BIAS_V:
                 raise UserError(
-                    f"{where}: field 'bias.points_V[{i}]': must be a bias magnitude >= 0 V "
-                    f"(got {v!r}); use polarity = \"negative\" for negative bias"
+                    f"{where}: field 'bias.points_V[{i}]': must be a bias magnitude from 0 to "
+                    f"{MAX_BIAS_V:g} V (got {safe_repr(v)}); use polarity = \"negative\" for negative bias"
                 )
             if clean and v <= clean[-1]:
                 raise UserError(f"{where}: field 'bias.points_V[{i}]': points must rise strictly (got {v!r} after {clean[-1]!r})")
             clean.append(float(v))
         b["points_V"] = clean
     elif kinds == ["step_V"]:
-        b["start_V"] = f.number("start_V", default=0.0, lo=0.0)
-        b["stop_V"] = f.number("stop_V", required=True, lo=0.0)
-        b["step_V"] = f.number("step_V", required=True, positive=True)
+        b["start_V"] = f.number("start_V", default=0.0, lo=0.0, hi=MAX_BIAS_V)
+        b["stop_V"] = f.number("stop_V", required=True, lo=0.0, hi=MAX_BIAS_V)
+        b["step_V"] = f.number("step_V", required=True, positive=True, hi=MAX_BIAS_V)
         span = b["stop_V"] - b["start_V"]
         if span <= 0:
             raise UserError(f"{where}: field 'bias.stop_V': must be above start_V ({b['start_V']} V)")
@@ -344,7 +360,7 @@ def _parse_bias(raw: Mapping, where: str) -> dict:
         if round(n) > 10000:
             raise UserError(f"{where}: field 'bias.step_V': {round(n)} steps is too many (at most 10000)")
     else:
-        b["fraction_of_rated"] = f.number("fraction_of_rated", required=True, positive=True)
+        b["fraction_of_rated"] = f.number("fraction_of_rated", required=True, positive=True, hi=2.0)
         b["steps"] = f.integer("steps", required=True, lo=1, hi=10000)
     used = {"points_V": ("points_V",), "step_V": ("start_V", "stop_V", "step_V"),
             "fraction_of_rated": ("fraction_of_rated", "steps")}[kinds[0]]
@@ -366,7 +382,8 @@ def _parse_measure(raw: Mapping, where: str) -> dict:
     m = {
         "dwell": f.choice("dwell", DWELL_POLICIES, default="fixed"),
         # a settle policy takes its times from [settle]; a fixed dwell needs its dwell_s
-        "dwell_s": f.number("dwell_s", required=raw.get("dwell", "fixed") == "fixed", lo=0.0),
+        "dwell_s": f.number("dwell_s", required=raw.get("dwell", "fixed") == "fixed", lo=0.0,
+                            hi=MAX_DWELL_S),
         "n_readings": f.integer("n_readings", default=3, lo=1, hi=1000),
         "function": None if raw.get("function") is None else f.choice("function", FUNCTIONS, upper=True),
         "freq_Hz": f.number("freq_Hz", default=None, lo=METER_FREQ_RANGE_HZ[0], hi=METER_FREQ_RANGE_HZ[1]),
@@ -383,23 +400,23 @@ def _parse_settle(raw: Mapping, where: str) -> dict:
     st = {
         # either threshold, or both: the drift rate, or the residual left (settle.py docstring)
         "max_residual_pct_of_reading": f.number("max_residual_pct_of_reading", default=None,
-                                                positive=True),
+                                                positive=True, hi=100.0),
         "max_residual_pct_of_C0": f.number("max_residual_pct_of_C0", default=None,
-                                           positive=True),
-        "max_tau_s": f.number("max_tau_s", default=20.0, positive=True),
+                                           positive=True, hi=100.0),
+        "max_tau_s": f.number("max_tau_s", default=20.0, positive=True, hi=MAX_DWELL_S),
         # or read the settled value off the relaxation fit (settle.py, prediction rule)
         "max_prediction_u_pct_of_C0": f.number("max_prediction_u_pct_of_C0", default=None,
-                                               positive=True),
+                                               positive=True, hi=100.0),
     }
     no_residual = (st["max_residual_pct_of_reading"] is None and st["max_residual_pct_of_C0"] is None
                    and st["max_prediction_u_pct_of_C0"] is None)
     st["max_drift_pct_per_s"] = f.number("max_drift_pct_per_s", required=no_residual,
-                                         positive=True)
+                                         positive=True, hi=100.0)
     st.update({
-        "max_dwell_s": f.number("max_dwell_s", required=True, positive=True),
-        "min_dwell_s": f.number("min_dwell_s", default=0.5, lo=0.0),
-        "window_s": f.number("window_s", default=2.0, positive=True),
-        "read_interval_s": f.number("read_interval_s", default=0.0, lo=0.0),
+        "max_dwell_s": f.number("max_dwell_s", required=True, positive=True, hi=MAX_DWELL_S),
+        "min_dwell_s": f.number("min_dwell_s", default=0.5, lo=0.0, hi=MAX_DWELL_S),
+        "window_s": f.number("window_s", default=2.0, positive=True, hi=MAX_DWELL_S),
+        "read_interval_s": f.number("read_interval_s", default=0.0, lo=0.0, hi=MAX_DWELL_S),
     })
     f.done()
     if st["max_prediction_u_pct_of_C0"] is None:
@@ -414,11 +431,12 @@ def _parse_adaptive(raw: Mapping, bias: Mapping, where: str) -> dict:
     """[adaptive]: the target and budget of adaptive bias steps (benchkit/sweep/adaptive.py)."""
     f = _Fields(raw, where, "adaptive.")
     ad = {
-        "target_band_pct_of_C0": f.number("target_band_pct_of_C0", required=True, positive=True),
+        "target_band_pct_of_C0": f.number("target_band_pct_of_C0", required=True, positive=True,
+                                          hi=100.0),
         "max_points": f.integer("max_points", default=40, lo=3, hi=10000),
         "coarse_points": f.integer("coarse_points", default=7, lo=3, hi=1000),
-        "coverage_k": f.number("coverage_k", default=2.0, positive=True),
-        "resolution_V": f.number("resolution_V", default=None, positive=True),
+        "coverage_k": f.number("coverage_k", default=2.0, positive=True, hi=10.0),
+        "resolution_V": f.number("resolution_V", default=None, positive=True, hi=MAX_BIAS_V),
         "model": f.string("model", default="auto", nonempty=True),
     }
     f.done()
@@ -451,14 +469,20 @@ def _parse_adaptive(raw: Mapping, bias: Mapping, where: str) -> dict:
 def _parse_limits(raw: Mapping, where: str) -> dict:
     f = _Fields(raw, where, "limits.")
     lim = {
-        "current_limit_A": f.number("current_limit_A", required=True, positive=True),
-        "max_ramp_V_per_s": f.number("max_ramp_V_per_s", required=True, positive=True),
-        "discharge_wait_s": f.number("discharge_wait_s", default=None, lo=0.0),
-        "discharge_R_ohm": f.number("discharge_R_ohm", default=None, positive=True),
-        "safe_V": f.number("safe_V", default=1.0, positive=True),
+        "current_limit_A": f.number("current_limit_A", required=True, positive=True,
+                                    lo=CURRENT_LIMIT_RANGE_A[0], hi=CURRENT_LIMIT_RANGE_A[1]),
+        "max_ramp_V_per_s": f.number("max_ramp_V_per_s", required=True, positive=True,
+                                     lo=RAMP_RANGE_V_PER_S[0], hi=RAMP_RANGE_V_PER_S[1]),
+        "discharge_wait_s": f.number("discharge_wait_s", default=None, lo=0.0, hi=MAX_DWELL_S),
+        "discharge_R_ohm": f.number("discharge_R_ohm", default=None, positive=True,
+                                    lo=DISCHARGE_R_RANGE_OHM[0], hi=DISCHARGE_R_RANGE_OHM[1]),
+        "safe_V": f.number("safe_V", default=1.0, positive=True, lo=SAFE_V_RANGE[0],
+                           hi=SAFE_V_RANGE[1]),
         "allow_above_rated": f.boolean("allow_above_rated", default=False),
-        "bias_tolerance_V": f.number("bias_tolerance_V", default=0.05, positive=True),
-        "temp_tolerance_C": f.number("temp_tolerance_C", default=2.0, positive=True),
+        "bias_tolerance_V": f.number("bias_tolerance_V", default=0.05, positive=True,
+                                     lo=BIAS_TOLERANCE_RANGE_V[0], hi=BIAS_TOLERANCE_RANGE_V[1]),
+        "temp_tolerance_C": f.number("temp_tolerance_C", default=2.0, positive=True,
+                                     lo=TEMP_TOLERANCE_RANGE_C[0], hi=TEMP_TOLERANCE_RANGE_C[1]),
     }
     f.done()
     if lim["discharge_wait_s"] is None and lim["discharge_R_ohm"] is None:
@@ -584,6 +608,10 @@ def discharge_wait_s(plan: Plan, sweeps: Iterable[SampleSweep]) -> tuple[float, 
         v0 = max(abs(p.bias_V) for p in sw.points)
         if v0 > lim["safe_V"]:
             best = max(best, lim["discharge_R_ohm"] * sw.part.nominal_C_F * math.log(v0 / lim["safe_V"]))
+    if best > MAX_DWELL_S:
+        raise UserError(
+            f"{plan.source}: field 'limits.discharge_R_ohm': R*C*ln(V0/V_safe) = {best:.4g} s is "
+            f"longer than {MAX_DWELL_S:g} s; give a smaller bleed resistance or a discharge_wait_s")
     return best, (
         f"R*C*ln(V0/V_safe) with R = {lim['discharge_R_ohm']:g} ohm, the largest nominal C, "
         f"V_safe = {lim['safe_V']:g} V"
@@ -605,7 +633,7 @@ class _Fields:
         self._seen: set[str] = set()
 
     def _err(self, key: str, what: str) -> UserError:
-        return UserError(f"{self.where}: field '{self.prefix}{key}': {what}")
+        return UserError(f"{self.where}: field {safe_repr(self.prefix + str(key))}: {what}")
 
     def seen(self, key: str) -> None:
         self._seen.add(key)
@@ -630,7 +658,7 @@ class _Fields:
         if not present:
             return default
         if not _is_number(v):
-            raise self._err(key, f"must be a number (got {v!r})")
+            raise self._err(key, f"must be a number (got {safe_repr(v)})")
         if positive and v <= 0:
             raise self._err(key, f"must be a positive number (got {v!r})")
         if lo is not None and v < lo:
@@ -639,12 +667,17 @@ class _Fields:
             raise self._err(key, f"must be at most {hi:g} (got {v!r})")
         return float(v)
 
+    def ident(self, key):
+        """A required id (sample_id, part_id): non-empty, short, printable."""
+        v = self.string(key, required=True, nonempty=True)
+        return check_id(v, self.where, self.prefix + key)
+
     def integer(self, key, required=False, default=None, lo=None, hi=None):
         v = self.take(key, required=required, default=default)
         if v is None:
             return default
         if isinstance(v, bool) or not isinstance(v, int):
-            raise self._err(key, f"must be a whole number (got {v!r})")
+            raise self._err(key, f"must be a whole number (got {safe_repr(v)})")
         if lo is not None and v < lo:
             raise self._err(key, f"must be at least {lo} (got {v!r})")
         if hi is not None and v > hi:
@@ -656,7 +689,7 @@ class _Fields:
         if v is None:
             return default
         if not isinstance(v, str):
-            raise self._err(key, f"must be a string (got {v!r})")
+            raise self._err(key, f"must be a string (got {safe_repr(v)})")
         if nonempty and not v.strip():
             raise self._err(key, "must not be empty")
         return v
@@ -664,24 +697,23 @@ class _Fields:
     def boolean(self, key, default=False):
         v = self.take(key, default=default)
         if not isinstance(v, bool):
-            raise self._err(key, f"must be true or false (got {v!r})")
+            raise self._err(key, f"must be true or false (got {safe_repr(v)})")
         return v
 
     def choice(self, key, choices, default=None, upper=False):
         v = self.take(key, required=default is None, default=default)
         vv = v.upper() if upper and isinstance(v, str) else v
         if vv not in choices:
-            raise self._err(key, f"must be one of {', '.join(map(repr, choices))} (got {v!r})")
+            raise self._err(key, f"must be one of {', '.join(map(repr, choices))} (got {safe_repr(v)})")
         return vv
 
     def string_list(self, key, default, choices):
         v = self.take(key, default=default)
         if not isinstance(v, list) or any(x not in choices for x in v):
-            raise self._err(key, f"must be a list of {', '.join(map(repr, choices))} (got {v!r})")
+            raise self._err(key, f"must be a list of {', '.join(map(repr, choices))} (got {safe_repr(v)})")
         return list(v)
 
     def done(self) -> None:
-        unknown = sorted(set(self.data) - self._seen)
+        unknown = sorted(set(self.data) - self._seen, key=str)
         if unknown:
-            known = ", ".join(sorted(self._seen))
-            raise self._err(unknown[0], f"unknown field (known here: {known}); check its spelling")
+            raise self._err(unknown[0], "unknown field" + did_you_mean(unknown[0], self._seen))

@@ -1,12 +1,20 @@
 """Resuming a run: the samples and parts it stored, the adaptive points it had planned, and
-the check that the rows on disk are this run's first planned points."""
+the check that the rows on disk are this run's first planned points.
+
+Why so suspicious: run.json is a text file anyone can edit, and a resume puts voltage on
+parts again. So the limits are derived anew from the catalogue and the plan (run.py), and
+every one of them must agree with what run.json recorded; the rows were checked against
+their digests when the run was reopened (benchkit/sweep/runlog.py, points.chain).
+"""
 
 from __future__ import annotations
 
+import math
 from dataclasses import fields, replace
+from pathlib import Path
 from typing import Mapping
 
-from benchkit.catalogue import PartSpec
+from benchkit.catalogue import PartSpec, catalogue_dict, load_catalogue
 from benchkit.errors import UserError
 from benchkit.sweep.adaptive import measured_point
 from benchkit.sweep.plan import PlannedPoint, SampleRef, SampleSweep
@@ -22,6 +30,56 @@ def samples_from_meta(meta: Mapping, run_dir) -> tuple[list[SampleRef], dict]:
     except (KeyError, TypeError, ValueError) as exc:
         raise UserError(f"{run_dir}/run.json: field 'samples' is incomplete ({exc}); cannot resume") from None
     return samples, parts
+
+
+def resume_catalogue(meta: Mapping, run_dir) -> dict:
+    """The parts catalogue the run was planned from: the parts file it recorded, else the demo."""
+    path = meta.get("parts_file")
+    if path is not None and not isinstance(path, str):
+        raise UserError(f"{run_dir}/run.json: field 'parts_file' must be a path; the file was edited")
+    if path is not None and not Path(path).exists():
+        raise UserError(f"{path}: the parts file run {meta.get('run_id')} was planned from is gone; "
+                        "restore it to resume (its limits are checked against run.json)")
+    return load_catalogue(path)
+
+
+def check_against_record(meta: Mapping, run_dir, sweeps, recorded_parts: Mapping, wait_s: float,
+                         above: list[str]) -> None:
+    """Every limit derived from the catalogue and the plan must equal what run.json says."""
+    where = f"{run_dir}/run.json"
+    fix = "the run record was edited or the catalogue changed since the run started; restore it or start a new run"
+    for i, sw in enumerate(sweeps, 1):
+        rec = recorded_parts.get(sw.sample.part_id)
+        if rec is None:
+            raise UserError(f"{where}: samples[{i}]: part {sw.sample.part_id} not recorded; {fix}")
+        now, then = catalogue_dict(sw.part), catalogue_dict(rec)
+        for name in now:
+            if now[name] != then[name]:
+                raise UserError(f"{where}: samples[{i}].part.{name} = {then[name]!r} but the catalogue "
+                                f"says {now[name]!r} for {sw.sample.part_id}; {fix}")
+        stored = meta["samples"][i - 1]
+        if stored.get("n_points") != len(sw.points):
+            raise UserError(f"{where}: samples[{i}].n_points = {stored.get('n_points')!r} but the plan "
+                            f"gives {len(sw.points)} points for {sw.sample.sample_id}; {fix}")
+        cond = stored.get("conditions") or {}
+        for name in ("function", "freq_Hz", "ac_level_Vrms"):
+            if cond.get(name) != getattr(sw.conditions, name):
+                raise UserError(f"{where}: samples[{i}].conditions.{name} = {cond.get(name)!r} but the "
+                                f"plan gives {getattr(sw.conditions, name)!r}; {fix}")
+    if len(meta["samples"]) != len(sweeps):
+        raise UserError(f"{where}: field 'samples': {len(meta['samples'])} recorded, {len(sweeps)} planned; {fix}")
+    rec_wait = meta.get("discharge_wait_s")
+    if not isinstance(rec_wait, (int, float)) or isinstance(rec_wait, bool) or \
+            not math.isclose(float(rec_wait), wait_s, rel_tol=1e-9, abs_tol=1e-9):
+        raise UserError(f"{where}: field 'discharge_wait_s' = {rec_wait!r} but the plan gives "
+                        f"{wait_s:g} s; {fix}")
+    if meta.get("n_points_planned") != sum(len(sw.points) for sw in sweeps):
+        raise UserError(f"{where}: field 'n_points_planned' = {meta.get('n_points_planned')!r} "
+                        "differs from the plan's; " + fix)
+    rec_above = (meta.get("above_rated") or {}).get("samples", [])
+    if sorted(rec_above) != sorted(above):
+        raise UserError(f"{where}: field 'above_rated.samples' = {rec_above!r} but the catalogue and "
+                        f"the plan put {above!r} above rating; {fix}")
 
 
 def replay_adaptive(sw: SampleSweep, rows) -> SampleSweep:

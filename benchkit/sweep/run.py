@@ -28,7 +28,11 @@ from benchkit.sweep.benchfile import BenchFile, bench_from_dict
 from benchkit.sweep.engine import SweepEngine
 from benchkit.sweep.plan import Plan, build_sweeps, discharge_wait_s, parse_plan, resolve_samples
 from benchkit.sweep.progress import Progress
-from benchkit.sweep.resume import check_prefix, replay_adaptive, samples_from_meta
+from benchkit.sweep.limits import bench_ranges, check_above_rated_consent, check_bench_limits
+from benchkit.sweep.resume import (
+    check_against_record, check_prefix, replay_adaptive, resume_catalogue, samples_from_meta,
+)
+from benchkit.sweep.summary import final_state_line, sample_lines, summary_record, supply_final_state
 from benchkit.sweep.runlog import FLAGS, RunFileError, RunLog, utc_now
 from benchkit.sweep.safety import Interrupted, SignalGuard, arm_last_resort, disarm_last_resort
 from benchkit.sweep.sources import BenchSource
@@ -63,13 +67,17 @@ def run_sweep(
     io_timeout_s: float | None = None,
     extra_record: Mapping[str, Any] | None = None,
     before_output: Callable[[], None] | None = None,
+    confirm_above_rated: bool | Callable[[list[str]], bool] = False,
 ) -> RunResult:
     """Run `plan` on a bench into the new directory `out_dir`.
 
     `bench_or_instruments`: a bench-file path or BenchFile, a started SimBench (its clock is
     used unless `clock` is given), or open `Instruments`. Everything is validated before any
-    voltage is applied (UserError). `before_output` is called once the instruments answered
-    and the run directory exists, just before the supply is touched (e.g. to print cautions).
+    voltage is applied, and before the run directory is made (UserError): the plan's limits
+    against the bench's own ranges too. A plan that goes above a part's rating needs
+    `confirm_above_rated` (True for --yes, or a callable shown the summary lines that asks
+    the operator). `before_output` is called once the instruments answered and the run
+    directory exists, just before the supply is touched (e.g. to print cautions).
     Returns how the run ended; the supply is off either way.
     """
     parts = load_catalogue() if parts is None else parts
@@ -78,11 +86,18 @@ def run_sweep(
     samples = resolve_samples(plan, src.channels)
     sweeps = build_sweeps(plan, samples, parts, src.supply_range_V())
     wait_s, wait_how = discharge_wait_s(plan, sweeps)
+    check_bench_limits(plan, sweeps, bench_ranges(src))
+    above, consent = _consent(plan, sweeps, confirm_above_rated)
     with src.open() as inst:
         meta = _new_meta(plan, sweeps, inst, src, clock, wait_s, wait_how, extra_record)
+        meta["above_rated"] = {"allowed": plan.limits["allow_above_rated"], "samples": above,
+                               "confirmed_by": consent}
+        meta["summary"] = summary_record(plan, sweeps, above)
         log = RunLog.create(out_dir, meta)
+        log.flag_samples = {sid: ("above_rated",) for sid in above}
         log.event(0.0, "start", points_planned=meta["n_points_planned"])
         log.save()
+        _say_summary(progress, plan, sweeps, above)
         if before_output is not None:
             before_output()
         return _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, [], wait_s)
@@ -95,14 +110,19 @@ def resume_sweep(
     progress: Progress | None = None,
     *,
     plan: Plan | None = None,
+    parts: Mapping[str, Any] | None = None,
     handle_signals: bool = True,
     io_timeout_s: float | None = None,
     before_output: Callable[[], None] | None = None,
+    confirm_above_rated: bool | Callable[[list[str]], bool] = False,
 ) -> RunResult:
     """Continue an interrupted run from its last complete point (also after kill -9).
 
-    The plan, samples and parts come from run.json; `plan`, when given, must be the same
-    plan (same hash). Points already in points.csv are not measured again.
+    Nothing in the run directory is believed that can be checked: the rows must match their
+    digests (points.chain), the stored plan its hash, and every limit is derived again from
+    the catalogue (`parts`, default: the parts file the run recorded) and the plan, then
+    compared with run.json: any disagreement is refused (UserError). `plan`, when given, must
+    be the same plan (same hash). Points already in points.csv are not measured again.
     """
     log = RunLog.reopen(run_dir)
     try:
@@ -114,7 +134,8 @@ def resume_sweep(
             raise UserError(f"{run_dir}/run.json: the stored plan does not match its plan_sha256; the file was edited")
         if plan is not None and plan.sha256 != stored.sha256:
             raise UserError(f"{plan.source}: not the plan of run {meta['run_id']} (plan hash differs); resume without --plan or with the same plan")
-        samples, parts = samples_from_meta(meta, run_dir)
+        samples, recorded_parts = samples_from_meta(meta, run_dir)
+        parts = resume_catalogue(meta, run_dir) if parts is None else parts
         src = BenchSource(bench_or_instruments, io_timeout_s)
         if src.bench is not None and src.channels:
             bench_map = {c.channel: (c.sample_id, c.part_id) for c in src.channels}
@@ -126,14 +147,20 @@ def resume_sweep(
                     )
         clock = _pick_clock(clock, src)
         sweeps = build_sweeps(stored, samples, parts, src.supply_range_V())
+        check_bench_limits(stored, sweeps, bench_ranges(src))
+        wait_s, _ = discharge_wait_s(stored, sweeps)
+        above, consent = _consent(stored, sweeps, confirm_above_rated)
+        check_against_record(meta, run_dir, sweeps, recorded_parts, wait_s, above)
         sweeps = [replay_adaptive(sw, log.rows) if sw.adaptive is not None else sw for sw in sweeps]
         check_prefix(log.rows, sweeps, meta["run_id"], run_dir)
-        wait_s = float(meta.get("discharge_wait_s") or 0.0)
+        log.flag_samples = {sid: ("above_rated",) for sid in above}
         with src.open() as inst:
             # the session's clock and instruments go into the event; the top level keeps the first
             log.event(None, "resume", points_done=len(log.rows), instruments=inst.record(),
-                      clock="virtual" if getattr(clock, "virtual", False) else "real")
+                      clock="virtual" if getattr(clock, "virtual", False) else "real",
+                      above_rated_confirmed_by=consent)
             log.set_status("running")
+            _say_summary(progress, stored, sweeps, above)
             if before_output is not None:
                 before_output()
             return _execute(inst, sweeps, stored, log, clock, progress, handle_signals, src, log.rows, wait_s)
@@ -150,6 +177,30 @@ def stored_bench(meta: Mapping) -> BenchFile:
 
 
 # --------------------------------------------------------------------------- internals
+
+
+def _consent(plan, sweeps, confirm) -> tuple[list[str], str | None]:
+    """The samples above rating and who agreed: '--yes', 'terminal' or None (none above)."""
+    from benchkit.sweep.limits import above_rated
+
+    over = [sw.sample.sample_id for sw, _ in above_rated(sweeps)]
+    if not over:
+        return [], None
+    if callable(confirm):
+        ok = bool(confirm(sample_lines(plan, sweeps, over)))
+        how = "terminal"
+    else:
+        ok, how = bool(confirm), "--yes"
+    check_above_rated_consent(plan, sweeps, ok)
+    return over, how
+
+
+def _say_summary(progress, plan, sweeps, above) -> None:
+    """Before energising: one line per sample (highest bias, current limit, ramp, duration)."""
+    if progress is None:
+        return
+    for line in sample_lines(plan, sweeps, above):
+        progress.note(f"benchkit: {line}")
 
 
 def _pick_clock(clock, src: BenchSource):
@@ -289,6 +340,12 @@ def _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, done
                 inst.scanner.open_all()
             disarm_last_resort(token)
             t = engine.t_s()
+            state = supply_final_state(raw_supply) if safe else {
+                "output_on": None, "voltage_set_V": None, "voltage_meas_V": None,
+                "error": getattr(raw_supply, "last_safe_off_error", None) or "safe_off not confirmed"}
+            log.event(t, "supply_final_state", **state)
+            if progress is not None:
+                progress.note(f"benchkit: {final_state_line(state)}")
             if status == "complete":
                 log.event(t, "complete", points_new=engine.n_new)
             else:

@@ -12,6 +12,7 @@ ended (sha256 differs from run.json) are refused.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Iterable
@@ -120,17 +121,24 @@ class RunData:
         return {sid: s for sid, s in self.samples.items() if s.n_points}
 
 
+# the numbers benchkit writes (repr of a float, str of an int): no "1_0", "nan", "inf", "0x1"
+_NUMBER = re.compile(r"[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?")
+
+
 def _num(row: dict, col: str, path: Path, line: int, required: bool = True) -> float:
-    text = row[col].strip()
+    text = row[col]
     if text == "":
         if required:
             raise UserError(f"{path}: line {line}: column '{col}' is empty; every used point "
                             "needs it")
         return math.nan
-    try:
-        return float(text)
-    except ValueError:
-        raise UserError(f"{path}: line {line}: column '{col}': {text!r} is not a number") from None
+    if len(text) > 40 or not _NUMBER.fullmatch(text):
+        raise UserError(f"{path}: line {line}: column '{col}': {text[:40]!r} is not a number "
+                        "(benchkit writes finite decimals); the file was edited or damaged")
+    v = float(text)
+    if not math.isfinite(v):
+        raise UserError(f"{path}: line {line}: column '{col}': {text[:40]!r} is out of range")
+    return v
 
 
 def _sample(sid: str, items: list[tuple[int, dict]], dropped: list[tuple[int, dict]],
@@ -147,10 +155,18 @@ def _sample(sid: str, items: list[tuple[int, dict]], dropped: list[tuple[int, di
         if c <= 0:
             raise UserError(f"{path}: line {line}: C_F = {c!r} is not a positive "
                             "capacitance; check the meter function and range")
+        sd = _num(r, "C_std_F", path, line, required=False)
+        if sd < 0:
+            raise UserError(f"{path}: line {line}: C_std_F = {sd!r} is negative; a standard "
+                            "deviation is >= 0: the file was edited or damaged")
+        k = _num(r, "n_readings", path, line, required=False)
+        if not math.isnan(k) and (k < 0 or k != int(k)):
+            raise UserError(f"{path}: line {line}: n_readings = {r['n_readings']!r} is not a "
+                            "whole number of readings")
         V.append(v)
         C.append(c)
-        std.append(_num(r, "C_std_F", path, line, required=False))
-        n.append(_num(r, "n_readings", path, line, required=False))
+        std.append(sd)
+        n.append(k)
         temp.append(_num(r, "temp_C", path, line, required=False))
         labels.append(r["branch"])
     first = (items or dropped)[0][1]
@@ -163,6 +179,27 @@ def _sample(sid: str, items: list[tuple[int, dict]], dropped: list[tuple[int, di
         left_out_rows=[r for _, r in dropped], left_out_lines=tuple(line for line, _ in dropped))
 
 
+def _check_rows(rows: list[dict], path: Path) -> None:
+    """What every row must be, complete run or aborted: once per key, known flags, whole
+    numbers where the engine writes whole numbers."""
+    seen: dict[tuple, int] = {}
+    for line, r in enumerate(rows, start=2):
+        for col in ("repeat", "step_index", "channel"):
+            if not r[col].isdigit() or len(r[col]) > 9:
+                raise UserError(f"{path}: line {line}: column '{col}': {r[col][:20]!r} is not a "
+                                "whole number; the file was edited or damaged")
+        key = (r["sample_id"], int(r["repeat"]), int(r["step_index"]))
+        if key in seen:
+            raise UserError(f"{path}: line {line} repeats the point of line {seen[key]} "
+                            f"({key[0]} repeat {key[1]} step {key[2]}); the file was edited or "
+                            "mixed with another run")
+        seen[key] = line
+        unknown = flags_of(r) - runlog.FLAGS.keys()
+        if unknown:
+            raise UserError(f"{path}: line {line}: column 'flags': {sorted(unknown)[0][:30]!r} is "
+                            "not a benchkit flag; the file was edited or damaged")
+
+
 def read_run_dir(run_dir: str | Path, *, sample: str | None = None,
                  extra_flags: Iterable[str] = (), action: str = "fitted") -> RunData:
     """Read RUN_DIR for fitting: every sample (or only `sample`, the --sample of the caller)
@@ -171,13 +208,17 @@ def read_run_dir(run_dir: str | Path, *, sample: str | None = None,
     ("... so they are not fitted")."""
     run_dir = Path(run_dir)
     meta = runlog.read_run(run_dir)
-    rows, _ = runlog.read_points(run_dir)
+    rows, end = runlog.read_points(run_dir, chain=False)  # the chain after the sha256, below
     path = run_dir / runlog.POINTS_FILE
     if not rows:
         raise UserError(f"{path}: no measured points; measure the run (or resume it) first")
     samples_in_run = sorted({r["sample_id"] for r in rows})
     if sample is not None and sample not in samples_in_run:
         raise UserError(f"--sample {sample}: not in {path} (samples: {', '.join(samples_in_run)})")
+    if meta.get("points_chain") and not (run_dir / runlog.CHAIN_FILE).exists():
+        raise UserError(f"{run_dir / runlog.CHAIN_FILE}: missing, so the rows cannot be checked "
+                        f"against their digests; restore it, they are not {action}")
+    _check_rows(rows, path)
     exclude = frozenset(LEFT_OUT_FLAGS | set(extra_flags))
     kept: dict[str, list[tuple[int, dict]]] = {}
     dropped: dict[str, list[tuple[int, dict]]] = {}
@@ -196,6 +237,8 @@ def read_run_dir(run_dir: str | Path, *, sample: str | None = None,
     if meta.get("points_sha256") and meta["points_sha256"] != sha:
         raise UserError(f"{path}: sha256 differs from the one in run.json; the points "
                         f"were changed after the run ended, so they are not {action}")
+    if (run_dir / runlog.CHAIN_FILE).exists():  # an aborted run has no sha256: its rows' digests
+        runlog.check_chain(run_dir, path.read_bytes()[:end])
     return RunData(run_dir, meta, path, sha, samples, exclude)
 
 

@@ -5,6 +5,12 @@ loses at most the point in progress (a trailing partial line, dropped on resume)
 replaced atomically at the start (status running), on every status change and at the end
 (complete with the sha256 of points.csv, or aborted with the reason). The columns are the
 interface with the fitting and verification code (DEVELOPERS.md, "File formats": run directory).
+
+points.chain holds one digest per line of points.csv, written with the line: a hash chain,
+h_k = sha256(h_(k-1) || line_k), started from the run id. An aborted run has no final
+sha256, so the chain is what shows a completed row was edited (resume and fit refuse it,
+naming the line). It guards against edits and damage, not against someone who recomputes
+the chain on purpose.
 """
 
 from __future__ import annotations
@@ -21,12 +27,15 @@ from pathlib import Path
 from typing import Any, Iterable, Mapping
 
 from benchkit.atomic import write_text_atomic
+from benchkit.bounded import control_char
 from benchkit.errors import UserError
 
 RUN_FORMAT = "benchkit-run"
 RUN_VERSION = 1
 RUN_FILE = "run.json"
 POINTS_FILE = "points.csv"
+CHAIN_FILE = "points.chain"
+_DIGEST_LINE = 65  # 64 hex digits and a newline
 
 COLUMNS = (
     "run_id", "sample_id", "part_id", "channel", "step_index", "branch", "repeat",
@@ -47,6 +56,8 @@ FLAGS = {
                  "(drift rate or predicted residual): the point was read while the part may still drift",
     "predicted": "C_F is the settled value predicted from the relaxation fit of the dwell's readings "
                  "(settle.max_prediction_u_pct_of_C0); C_std_F/sqrt(n_readings) is its standard uncertainty",
+    "above_rated": "the plan took this sample above its part's rated voltage (limits.allow_above_rated, "
+                   "confirmed by the operator); its later behaviour may not be the part's own",
     "retried": "an instrument exchange of this point needed a retry (no reply, a garbled or late reply, "
                "or a reconnect after a dropped link); run.json events 'link_recovered' say which",
 }
@@ -108,8 +119,11 @@ def sha256_file(path: str | os.PathLike) -> str:
     return h.hexdigest()
 
 
-def read_points(run_dir: str | os.PathLike) -> tuple[list[dict[str, str]], int]:
-    """The complete rows of points.csv and the byte length they occupy (a partial tail excluded)."""
+def read_points(run_dir: str | os.PathLike, chain: bool = True) -> tuple[list[dict[str, str]], int]:
+    """The complete rows of points.csv and the byte length they occupy (a partial tail excluded).
+
+    With `chain` (and a points.chain beside it) the rows are checked against their digests
+    and a last row whose digest never reached the disk is left out (the point in progress)."""
     path = Path(run_dir) / POINTS_FILE
     try:
         data = path.read_bytes()
@@ -130,8 +144,62 @@ def read_points(run_dir: str | os.PathLike) -> tuple[list[dict[str, str]], int]:
     for n, fields in enumerate(lines[1:], start=2):
         if len(fields) != len(COLUMNS):
             raise UserError(f"{path}: line {n} has {len(fields)} fields, expected {len(COLUMNS)}; the file was edited or damaged")
+        for col, text in zip(COLUMNS, fields):
+            bad = control_char(text)
+            if bad is not None:
+                raise UserError(f"{path}: line {n}: column '{col}' holds the control character "
+                                f"{bad}; the file was edited or damaged")
         rows.append(dict(zip(COLUMNS, fields)))
+    if chain and (Path(run_dir) / CHAIN_FILE).exists():
+        kept = check_chain(run_dir, data[:end])
+        if kept < len(lines):  # the last row's digest never reached the disk: the point in progress
+            rows = rows[: kept - 1]
+            end = _line_end(data, kept)
     return rows, end
+
+
+def _line_end(data: bytes, n_lines: int) -> int:
+    """Byte offset just after the first n_lines lines of data."""
+    pos = 0
+    for _ in range(n_lines):
+        pos = data.index(b"\n", pos) + 1
+    return pos
+
+
+def chain_start(run_id: str) -> bytes:
+    return hashlib.sha256(f"benchkit-points-chain\n{run_id}".encode("utf-8")).digest()
+
+
+def chain_next(prev: bytes, line: bytes) -> bytes:
+    return hashlib.sha256(prev + line).digest()
+
+
+def check_chain(run_dir: str | os.PathLike, data: bytes) -> int:
+    """Check points.csv's complete lines (`data`) against points.chain; returns how many lines
+    carry a matching digest (all, or all but the last when the run stopped between writing a
+    row and its digest). UserError naming the first line whose digest differs."""
+    d = Path(run_dir)
+    path, cpath = d / POINTS_FILE, d / CHAIN_FILE
+    meta = read_run(d)
+    try:
+        chain = cpath.read_bytes()
+    except OSError as exc:
+        raise UserError(f"{cpath}: cannot read ({exc.strerror or exc}); the run directory is damaged") from None
+    digests = chain[: len(chain) - len(chain) % _DIGEST_LINE]
+    n_dig = len(digests) // _DIGEST_LINE
+    lines = data.split(b"\n")[:-1]
+    if not (len(lines) - 1 <= n_dig <= len(lines) + 1):
+        raise UserError(f"{path}: {len(lines)} lines but {cpath.name} holds {n_dig} digests; "
+                        "lines were added or removed after they were written: restore the file")
+    h = chain_start(str(meta.get("run_id")))
+    for k, line in enumerate(lines[:n_dig], start=1):
+        h = chain_next(h, line + b"\n")
+        want = digests[(k - 1) * _DIGEST_LINE:(k - 1) * _DIGEST_LINE + 64]
+        if h.hex().encode("ascii") != want:
+            raise UserError(f"{path}: line {k} differs from the line written during the run (its "
+                            f"digest in {cpath.name} does not match); the row was edited or damaged: "
+                            "restore the original file or measure again")
+    return min(n_dig, len(lines))
 
 
 def read_run(run_dir: str | os.PathLike) -> dict:
@@ -153,11 +221,15 @@ def read_run(run_dir: str | os.PathLike) -> dict:
 class RunLog:
     """Owns one run directory while a sweep writes into it (an exclusive lock on points.csv)."""
 
-    def __init__(self, run_dir: Path, meta: dict, fh, rows: list[dict[str, str]]):
+    def __init__(self, run_dir: Path, meta: dict, fh, rows: list[dict[str, str]], chain_fh=None,
+                 chain_prev: bytes | None = None):
         self.dir = run_dir
         self.meta = meta
         self._fh = fh
+        self._chain = chain_fh
+        self._prev = chain_start(str(meta.get("run_id"))) if chain_prev is None else chain_prev
         self.rows = rows  # rows already in points.csv before this session
+        self.flag_samples: dict[str, tuple[str, ...]] = {}  # flags every row of a sample carries
 
     # -- opening -------------------------------------------------------------
     @classmethod
@@ -167,19 +239,23 @@ class RunLog:
         if d.exists() and (not d.is_dir() or any(d.iterdir())):
             raise UserError(f"{d}: already exists and is not empty; choose a new --out, or --resume {d}")
         created = not d.exists()
-        fh = None
+        fh = cfh = None
         try:
             d.mkdir(parents=True, exist_ok=True)
             fh = open(d / POINTS_FILE, "a+", encoding="utf-8", newline="")
             cls._lock(fh, d)
-            log = cls(d, meta, fh, [])
+            meta["points_chain"] = CHAIN_FILE
+            cfh = open(d / CHAIN_FILE, "ab")
+            log = cls(d, meta, fh, [], cfh)
             log._append_bytes((",".join(COLUMNS) + "\n").encode("utf-8"))
             log.save()
         except (OSError, RunFileError) as exc:
             # nothing half written: take back what was made, then one line for the operator
+            if cfh is not None:
+                cfh.close()
             if fh is not None:
                 fh.close()
-                for name in (POINTS_FILE, RUN_FILE):
+                for name in (POINTS_FILE, CHAIN_FILE, RUN_FILE):
                     try:
                         (d / name).unlink()
                     except OSError:
@@ -206,14 +282,36 @@ class RunLog:
         except FileNotFoundError:
             raise UserError(f"{path}: not found; is {d} a run directory?") from None
         cls._lock(fh, d)
-        rows, end = read_points(d)
-        if path.stat().st_size != end:
-            with open(path, "r+b") as raw:
-                raw.truncate(end)
-                raw.flush()
-                os.fsync(raw.fileno())
+        try:
+            cpath = d / CHAIN_FILE
+            if meta.get("points_chain") != CHAIN_FILE or not cpath.exists():
+                raise UserError(f"{cpath}: missing; without its row digests the rows of this run "
+                                "cannot be checked, so it is not resumed: start a new run")
+            rows, end = read_points(d)
+            data = path.read_bytes()[:end]
+            n_lines = data.count(b"\n")
+            chain_fh = open(cpath, "r+b")
+        except BaseException:
+            fh.close()
+            raise
+        try:
+            if path.stat().st_size != end:
+                with open(path, "r+b") as raw:
+                    raw.truncate(end)
+                    raw.flush()
+                    os.fsync(raw.fileno())
+            chain_fh.truncate(n_lines * _DIGEST_LINE)  # a digest whose row never reached the disk
+            os.fsync(chain_fh.fileno())
+        except OSError as exc:
+            fh.close()
+            chain_fh.close()
+            raise UserError(_write_problem(path, exc)) from None
+        chain_fh.seek(0, os.SEEK_END)
+        prev = chain_start(str(meta.get("run_id")))
+        for line in data.split(b"\n")[:-1]:
+            prev = chain_next(prev, line + b"\n")
         fh.seek(0, os.SEEK_END)
-        return cls(d, meta, fh, rows)
+        return cls(d, meta, fh, rows, chain_fh, prev)
 
     @staticmethod
     def _lock(fh, d: Path) -> None:
@@ -226,6 +324,9 @@ class RunLog:
     # -- writing -------------------------------------------------------------
     def append_point(self, row: Mapping[str, Any]) -> None:
         """One row, on disk (fsync) before this returns; RunFileError if it cannot be."""
+        extra = self.flag_samples.get(row.get("sample_id"))
+        if extra:
+            row["flags"] = join_flags([*filter(None, str(row["flags"] or "").split(";")), *extra])
         self._append_bytes(row_line(row).encode("utf-8"))
 
     def _append_bytes(self, data: bytes) -> None:
@@ -233,17 +334,25 @@ class RunLog:
         on failure cut the file back, so it holds whole confirmed rows only."""
         fd = self._fh.fileno()
         start = os.lseek(fd, 0, os.SEEK_END)
+        cfd = self._chain.fileno() if self._chain is not None else None
+        cstart = os.lseek(cfd, 0, os.SEEK_END) if cfd is not None else 0
+        digest = chain_next(self._prev, data)
         try:
-            view = memoryview(data)
-            while view:
-                view = view[os.write(fd, view):]
+            _write_all(fd, data)
+            if cfd is not None:
+                _write_all(cfd, digest.hex().encode("ascii") + b"\n")
             os.fsync(fd)
+            if cfd is not None:
+                os.fsync(cfd)
         except OSError as exc:
-            try:
-                os.ftruncate(fd, start)
-            except OSError:
-                pass  # a partial last line is dropped when the run is resumed
+            for f, at in ((fd, start), (cfd, cstart)):
+                if f is not None:
+                    try:
+                        os.ftruncate(f, at)
+                    except OSError:
+                        pass  # a partial last line is dropped when the run is resumed
             raise RunFileError(_write_problem(self.dir / POINTS_FILE, exc)) from None
+        self._prev = digest
 
     def event(self, t_s: float | None, kind: str, **fields: Any) -> None:
         entry = {"utc": utc_now(), "t_s": t_s, "event": kind}
@@ -268,8 +377,16 @@ class RunLog:
             raise RunFileError(str(exc)) from None
 
     def close(self) -> None:
+        if self._chain is not None and not self._chain.closed:
+            self._chain.close()
         if self._fh is not None and not self._fh.closed:
             self._fh.close()  # releases the lock
+
+
+def _write_all(fd: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        view = view[os.write(fd, view):]
 
 
 def _fsync_dir(d: Path) -> None:

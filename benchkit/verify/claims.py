@@ -164,6 +164,9 @@ def load_claim(path) -> Claim:
 
 
 def parse_claim(text: str, name: str = "<claim>") -> Claim:
+    from benchkit.bounded import check_text, control_char
+
+    check_text(text, name, "claim file")
     header: dict[str, tuple[str, int]] = {}
     notes: list[str] = []
     columns: list[str] | None = None
@@ -193,6 +196,10 @@ def parse_claim(text: str, name: str = "<claim>") -> Claim:
                 raise UserError(f"{where}: unknown header key {key!r}"
                                 + (f"; did you mean {hint!r} (units are part of the name)?" if hint
                                    else f"; known keys: {known}"))
+            bad = control_char(value)
+            if bad is not None:
+                raise UserError(f"{where}: header key {key!r}: contains the control character "
+                                f"{bad}; retype it")
             header[key] = (value, lineno)
             continue
         cells = [c.strip() for c in line.split(",")]
