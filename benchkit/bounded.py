@@ -94,7 +94,7 @@ def data_depth(obj: Any) -> int:
     return best
 
 
-def loads_toml(text: str, where: str, what: str = "file") -> dict:
+def loads_toml(text: str, where: str, what: str = "file", syntax: str = "not valid TOML") -> dict:
     """tomllib.loads with the bounds above; every problem is one UserError line."""
     check_text(text, where, what)
     depth, line = _bracket_depth(text)
@@ -104,7 +104,7 @@ def loads_toml(text: str, where: str, what: str = "file") -> dict:
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise UserError(f"{where}: not valid TOML: {' '.join(str(exc).split())}; "
+        raise UserError(f"{where}: {syntax}: {' '.join(str(exc).split())}; "
                         f"fix the {what}") from None
     except RecursionError:
         raise UserError(f"{where}: nested too deeply; not a benchkit {what}") from None

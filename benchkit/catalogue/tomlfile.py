@@ -127,6 +127,6 @@ def read_toml(path: Path | str) -> dict:
     from benchkit.errors import UserError
 
     try:
-        return loads_toml(text, str(p), "catalogue file")
+        return loads_toml(text, str(p), "catalogue file", syntax="TOML syntax error")
     except UserError as exc:
         raise PartsFileError(str(exc)) from None
