@@ -57,11 +57,18 @@ def _library(out_dir, quick, parts, log):
                           "(benchkit.library.benchmark_query)")
 
 
+def _soak(out_dir, quick, parts, log):
+    from benchkit.benchmarks import soak
+
+    return soak.run(out_dir, quick=quick, log=log)
+
+
 BENCHMARKS: dict[str, Callable] = {
     "bench_time": _bench_time,
     "overhead": _overhead,
     "fits": _fits,
     "library_query": _library,
+    "soak": _soak,
 }
 
 

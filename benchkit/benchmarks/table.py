@@ -88,4 +88,18 @@ def format_table(results: dict) -> str:
                          f"per-curve loop {lq['loop_s']:.2f} s ({lq['loop_over_query']:.0f}x the warm query); "
                          f"build {lq['build_s']:.1f} s")
         lines.append("")
+    sk = b.get("soak")
+    if sk is not None:
+        lines.append("Soak: peak memory of a long sweep over a short one (fresh processes)")
+        if "error" in sk:
+            lines.append(f"  FAILED: {sk['error']}")
+        else:
+            sh, lo = sk["short"], sk["long"]
+            lines.append(f"  {sh['points']} points: peak RSS {sh['peak_rss_bytes'] / 1e6:.1f} MB "
+                         f"({sh['wall_s']:.0f} s); {lo['points']} points: {lo['peak_rss_bytes'] / 1e6:.1f} MB "
+                         f"({lo['wall_s']:.0f} s)")
+            lines.append(f"  ratio {sk['peak_ratio']:.3f} (target <= {sk['target_ratio']:g}: "
+                         f"{'met' if sk['within_target'] else 'NOT met'}); "
+                         f"{sk['extra_bytes_per_point']:.1f} extra bytes per point")
+        lines.append("")
     return "\n".join(lines)

@@ -49,6 +49,10 @@ def register(subparsers) -> None:
                    help="hours since the last heat of the measured samples, if the runs lack it")
     p.add_argument("--aging-k", type=float, metavar="PCT_PER_DECADE",
                    help="aging rate for the age normalisation (default: typical for the class)")
+    p.add_argument("--accept-other-conditions", action="store_true",
+                   help="judge samples measured at another frequency, AC level or temperature than "
+                        "the claim's as if at the claim's (recorded in the report); otherwise they "
+                        "are not decidable (exit 3)")
     p.add_argument("--lot-size", type=int, help="lot size, to judge the lot by ISO 2859-1")
     p.add_argument("--aql", type=float, default=1.0, help="AQL in %% with --lot-size (default 1.0)")
     p.add_argument("--level", default="II", help="inspection level with --lot-size (default II)")
@@ -83,7 +87,8 @@ def run(args) -> int:
     samples, skipped = measured.load_inputs(args.inputs, part_id, args.branch, args.model,
                                             args.measured_age_h)
     v = compare.verify(claim, samples, skipped, tol, args.rule, args.k,
-                       args.meter_accuracy_pct, args.aging_k, plan)
+                       args.meter_accuracy_pct, args.aging_k, plan,
+                       accept_other_conditions=args.accept_other_conditions)
     html_path, json_path = write_report(v, args.out)
     for s in v.samples:
         print(f"{s.sample.sample_id}: {s.verdict}" + (f"  [{'; '.join(s.flags)}]" if s.flags else ""))

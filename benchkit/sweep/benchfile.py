@@ -95,8 +95,8 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
         tmo = t.get("timeout_s")
         if tmo is not None and (isinstance(tmo, bool) or not isinstance(tmo, (int, float))
                                 or not 0 < tmo <= 600):
-            raise UserError(f"{where}: [instrument.{role}]: field 'timeout_s' must be a number of seconds "
-                            "above 0 and at most 600")
+            raise UserError(f"{where}: [instrument.{role}]: field 'timeout_s' must be a positive number "
+                            "of seconds, at most 600")
         instruments[role] = InstrumentRef(role, res.strip(), prof, None if tmo is None else float(tmo))
     extra_roles = sorted(set(inst_raw) - set(ROLES), key=str)
     if extra_roles:
@@ -115,8 +115,8 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
             raise unknown_key(f"{where}: channel entry {i}", extra[0], _CHANNEL_KEYS)
         ch, sid, pid = c.get("channel"), c.get("sample_id"), c.get("part_id")
         if isinstance(ch, bool) or not isinstance(ch, int) or not 1 <= ch <= MAX_CHANNEL:
-            raise UserError(f"{where}: channel entry {i}: field 'channel' must be a whole number "
-                            f"from 1 to {MAX_CHANNEL} (got {safe_repr(ch)})")
+            raise UserError(f"{where}: channel entry {i}: field 'channel' must be a positive whole number "
+                            f"at most {MAX_CHANNEL} (got {safe_repr(ch)})")
         for name, v in (("sample_id", sid), ("part_id", pid)):
             if not isinstance(v, str) or not v.strip():
                 raise UserError(f"{where}: channel entry {i}: field '{name}' must be a non-empty string")

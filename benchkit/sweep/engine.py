@@ -44,8 +44,10 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         self.output_on = False
         self.output_off_done = False  # the normal end was reached: all points, output off
         self._measured: dict[str, list] = {}  # sample_id -> rows so far (adaptive planning)
+        adaptive = {sw.sample.sample_id for sw in sweeps if sw.adaptive is not None}
         for r in done_rows:
-            self._measured.setdefault(r["sample_id"], []).append(r)
+            if r["sample_id"] in adaptive:
+                self._measured.setdefault(r["sample_id"], []).append(r)
         self._ref_temp = None
         self._dwell_readings: list = []  # (time, (C_F, D, Rs_ohm) or None) of the last dwell
         self._raw = {"meter": inst.meter, "supply": inst.supply, "scanner": inst.scanner,
@@ -66,8 +68,7 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
     def run(self) -> None:
         if self.progress is not None:
             self.progress.start(self.total, self.done)
-        planned = [(sw, p) for sw in self.sweeps for p in sw.points]
-        todo = planned[self.done:]
+        skip = self.done  # points already on disk, in plan order (resume)
         s = self.supply
         if s.output_on:  # e.g. left on by a killed run: never jump a charged part to 0 V
             s.ramp_to(0.0, self.plan.max_ramp_V_per_s, self.gclock)
@@ -76,18 +77,20 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         s.current_limit_A = self.plan.current_limit_A
         first_in_session = True
         for sw in self.sweeps:
-            pts = [p for (w, p) in todo if w is sw]
-            if not pts and (sw.adaptive is None or sw.adaptive.stopped):
+            # the planned points are made one at a time (PlannedPoints): constant memory per point
+            n = len(sw.points)
+            start = min(skip, n)
+            skip -= start
+            if start == n and (sw.adaptive is None or sw.adaptive.stopped):
                 if sw.adaptive is not None:
                     self._adaptive_record(sw)
                 continue
             self._start_sample(sw)
-            if first_in_session and self.resumed and pts and pts[0] is not sw.points[0]:
-                self._approach(sw, pts[0])
+            if first_in_session and self.resumed and 0 < start < n:
+                self._approach(sw, sw.points[start], start)
             self._ref_temp = None
-            for p in pts:
-                mid_sample = p is not sw.points[0]
-                self._take_point(sw, p, resumed=first_in_session and self.resumed and mid_sample)
+            for k in range(start, n):
+                self._take_point(sw, sw.points[k], resumed=first_in_session and self.resumed and k > 0)
                 first_in_session = False
             if sw.adaptive is not None:
                 self._adaptive_passes(sw, first_in_session and self.resumed)
@@ -112,6 +115,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         # before the point is written (SCPI SYSTem:ERRor?), so no row follows an error unflagged
         for drv in (self.meter, self.thermo):
             drv.check_errors(after=f"measuring {p.sample_id} step {p.step_index}")
+        if self._note_recoveries():  # a retry while reading the queues belongs to this point
+            row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "retried"])
         if self._ref_temp is None:
             self._ref_temp = row["temp_C"]
         elif row["temp_C"] is not None and \
@@ -119,7 +124,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
             row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
         with self.guard.transaction():  # a row is written whole or not at all
             self.log.append_point(row)
-        self._measured.setdefault(p.sample_id, []).append(row)
+        if sw.adaptive is not None:  # its planner needs the rows; other samples' stay on disk
+            self._measured.setdefault(p.sample_id, []).append(row)
         self.done += 1
         self.n_new += 1
         if self.progress is not None:
@@ -144,18 +150,34 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         self.log.event(self.t_s(), "sample_start", sample_id=sw.sample.sample_id, channel=sw.sample.channel)
         self.log.save()
 
-    def _approach(self, sw: SampleSweep, first: PlannedPoint) -> None:
-        """After a resume, reach a falling-branch point from above, as the plan would have."""
-        if first.branch != "falling":
-            return
+    def _approach(self, sw: SampleSweep, first: PlannedPoint, start: int) -> None:
+        """After a resume mid-sample, restart the interrupted branch from 0 V: pass through
+        every earlier point of the loop without reading (each with its dwell), so a falling
+        point is reached from the top and a rising one from below, on the bias history it had
+        (benchkit/sweep/resume.py retrace_path); the event says which points were retraced."""
         if sw.adaptive is not None and first.repeat >= 2:
             return  # _lead_in turns at the top first, as the pass would have
-        before = [p for p in sw.points if p.repeat == first.repeat and p.step_index < first.step_index]
-        peak = next((p for p in reversed(before) if p.branch == "rising"), None)
-        if peak is None:
+        from benchkit.sweep.resume import retrace_path
+
+        path = retrace_path(sw, start)
+        if not path:
             return
-        self.log.event(self.t_s(), "resume_approach", sample_id=sw.sample.sample_id, via_V=peak.bias_V)
-        self.supply.ramp_to(peak.bias_V, self.plan.max_ramp_V_per_s, self.gclock)
+        self.log.event(self.t_s(), "resume_branch_restart", sample_id=sw.sample.sample_id,
+                       repeat=first.repeat, branch=first.branch, from_V=0.0, retraced_V=path,
+                       how="the interrupted branch restarts from 0 V through the loop's earlier "
+                           "points (dwell, no reading); its first point is flagged 'resumed'")
+        if self.progress is not None:
+            self.progress.note(f"benchkit: {sw.sample.sample_id}: the interrupted {first.branch} branch "
+                               f"restarts from 0 V through {len(path)} earlier point(s), not read again")
+        if first.branch == "falling":
+            before = [sw.points[j] for j in range(start - len(path), start)]
+            peak = next((p for p in reversed(before) if p.branch == "rising"), None)
+            if peak is not None:
+                self.log.event(self.t_s(), "resume_approach", sample_id=sw.sample.sample_id,
+                               via_V=peak.bias_V)
+        for v in path:
+            self.supply.ramp_to(v, self.plan.max_ramp_V_per_s, self.gclock)
+            self.policy.wait(self.gclock, lambda: self._probe(sw.conditions))
 
     def finish(self, wait_s: float) -> None:
         """Normal end: 0 V, output off, then the discharge wait before anyone handles parts."""

@@ -45,7 +45,7 @@ import json
 import math
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterable, Mapping
+from typing import Any, Iterable, Iterator, Mapping, Sequence
 
 from benchkit.bounded import check_free_text, check_id, did_you_mean, loads_toml, safe_repr
 from benchkit.catalogue import conditions as std
@@ -67,7 +67,7 @@ _POINT_TOL_V = 1e-9
 # dwell of seconds .. minutes, discharge waits of seconds .. minutes].
 MAX_BIAS_V = 1000.0
 CURRENT_LIMIT_RANGE_A = (1e-6, 10.0)
-RAMP_RANGE_V_PER_S = (1e-3, 100.0)
+RAMP_RANGE_V_PER_S = (1e-3, 1000.0)  # 1 V/ms: a fast bench supply's slew
 MAX_DWELL_S = 3600.0  # any one wait: dwell, settle limits, discharge wait
 DISCHARGE_R_RANGE_OHM = (1.0, 1e9)
 SAFE_V_RANGE = (0.01, 50.0)  # below 0.01 V a bleed wait grows without bound; above 50 V is not "safe"
@@ -105,6 +105,49 @@ class PlannedPoint:
         return (self.sample_id, self.repeat, self.step_index)
 
 
+class PlannedPoints(Sequence):
+    """The points of a sample, made when asked for: one repeat's sequence times the repeats.
+
+    Why not a tuple: a soak run of a million points would hold a million objects for the
+    whole run; this holds one repeat's (branch, bias) pairs, whatever the number of repeats.
+    """
+
+    __slots__ = ("sample_id", "seq", "repeats")
+
+    def __init__(self, sample_id: str, seq: Sequence[tuple[str, float]], repeats: int):
+        self.sample_id, self.seq, self.repeats = sample_id, tuple(seq), int(repeats)
+
+    def __len__(self) -> int:
+        return len(self.seq) * self.repeats
+
+    def _at(self, i: int) -> PlannedPoint:
+        r, k = divmod(i, len(self.seq))
+        br, v = self.seq[k]
+        return PlannedPoint(self.sample_id, r + 1, k, br, v)
+
+    def __getitem__(self, i):
+        n = len(self)
+        if isinstance(i, slice):
+            return tuple(self._at(j) for j in range(*i.indices(n)))
+        if i < 0:
+            i += n
+        if not 0 <= i < n:
+            raise IndexError("planned point index out of range")
+        return self._at(i)
+
+    def __iter__(self) -> Iterator[PlannedPoint]:
+        for j in range(len(self)):
+            yield self._at(j)
+
+    def __eq__(self, other) -> bool:
+        if isinstance(other, PlannedPoints):
+            return (self.sample_id, self.seq, self.repeats) == (other.sample_id, other.seq, other.repeats)
+        return isinstance(other, Sequence) and len(other) == len(self) and tuple(other) == tuple(self)
+
+    def __repr__(self) -> str:
+        return f"PlannedPoints({self.sample_id!r}, {len(self.seq)} per repeat x {self.repeats})"
+
+
 @dataclass(frozen=True)
 class MeterConditions:
     function: str
@@ -120,7 +163,7 @@ class SampleSweep:
     sample: SampleRef
     part: Any  # a catalogue PartSpec (id, nominal_C_F, rated_V, class_code, ...)
     conditions: MeterConditions
-    points: tuple[PlannedPoint, ...]
+    points: Sequence[PlannedPoint]  # a tuple, or PlannedPoints (made when asked for)
     # adaptive steps: a benchkit.sweep.adaptive.LoopPlanner; `points` is then its first (coarse)
     # pass and the engine asks it for each further pass
     adaptive: Any = None
@@ -572,12 +615,7 @@ def build_sweeps(
             pts = tuple(PlannedPoint(s.sample_id, 1, i, br, v) for i, (br, v) in enumerate(seq))
             out.append(SampleSweep(s, part, cond, pts, planner))
             continue
-        seq = plan.sequence(part.rated_V)
-        pts = tuple(
-            PlannedPoint(s.sample_id, r, i, br, v)
-            for r in range(1, plan.bias["repeats"] + 1)
-            for i, (br, v) in enumerate(seq)
-        )
+        pts = PlannedPoints(s.sample_id, plan.sequence(part.rated_V), plan.bias["repeats"])
         out.append(SampleSweep(s, part, cond, pts))
     return out
 
@@ -605,7 +643,8 @@ def discharge_wait_s(plan: Plan, sweeps: Iterable[SampleSweep]) -> tuple[float, 
         return float(lim["discharge_wait_s"]), "plan limits.discharge_wait_s"
     best = 0.0
     for sw in sweeps:
-        v0 = max(abs(p.bias_V) for p in sw.points)
+        v0 = max(abs(v) for _, v in sw.points.seq) if isinstance(sw.points, PlannedPoints) \
+            else max(abs(p.bias_V) for p in sw.points)
         if v0 > lim["safe_V"]:
             best = max(best, lim["discharge_R_ohm"] * sw.part.nominal_C_F * math.log(v0 / lim["safe_V"]))
     if best > MAX_DWELL_S:

@@ -82,6 +82,16 @@ def check_against_record(meta: Mapping, run_dir, sweeps, recorded_parts: Mapping
                         f"the plan put {above!r} above rating; {fix}")
 
 
+def retrace_path(sw: SampleSweep, start: int) -> list[float]:
+    """The biases a resumed sample passes through, from 0 V, before its point `start`: every
+    earlier point of the same repeat (loop), in order, so the interrupted branch restarts
+    from 0 V with the bias history it had (a class-2 part's C depends on the path: rising
+    and falling branches differ) [common practice; science notes 1, Miller model]."""
+    first = sw.points[start]
+    j0 = max(0, start - first.step_index)
+    return [sw.points[j].bias_V for j in range(j0, start)]
+
+
 def replay_adaptive(sw: SampleSweep, rows) -> SampleSweep:
     """The points an adaptive sample had planned when the run stopped: its planner is fed
     the rows on disk pass by pass (it is deterministic), so a resume measures exactly the
@@ -98,9 +108,10 @@ def replay_adaptive(sw: SampleSweep, rows) -> SampleSweep:
 
 def check_prefix(rows, sweeps, run_id, run_dir) -> None:
     """The rows on disk must be the first planned points, in order, of this run."""
-    planned = [p for sw in sweeps for p in sw.points]
-    if len(rows) > len(planned):
-        raise UserError(f"{run_dir}/points.csv: {len(rows)} rows but the plan has {len(planned)} points; not this run's file")
+    n_planned = sum(len(sw.points) for sw in sweeps)
+    if len(rows) > n_planned:
+        raise UserError(f"{run_dir}/points.csv: {len(rows)} rows but the plan has {n_planned} points; not this run's file")
+    planned = (p for sw in sweeps for p in sw.points)
     for n, (row, p) in enumerate(zip(rows, planned), start=2):
         ok = (
             row["run_id"] == run_id

@@ -51,7 +51,9 @@ FLAGS = {
                      "below the set value while sourcing): the part saw less than the set bias",
     "overload": "the meter reported overload (9.9E37) on at least one reading; those readings are left out",
     "temp_change": "temperature moved more than limits.temp_tolerance_C since the sample's first point",
-    "resumed": "first point measured after the run was resumed; the part's bias history was restarted",
+    "resumed": "first point measured after the run was resumed; the interrupted branch was restarted "
+               "from 0 V through the loop's earlier points, not read again (run.json event "
+               "resume_branch_restart)",
     "max_dwell": "settle detection reached settle.max_dwell_s before its settle rule was met "
                  "(drift rate or predicted residual): the point was read while the part may still drift",
     "predicted": "C_F is the settled value predicted from the relaxation fit of the dwell's readings "
@@ -245,7 +247,7 @@ class RunLog:
             fh = open(d / POINTS_FILE, "a+", encoding="utf-8", newline="")
             cls._lock(fh, d)
             meta["points_chain"] = CHAIN_FILE
-            cfh = open(d / CHAIN_FILE, "ab")
+            cfh = open(d / CHAIN_FILE, "a+", encoding="ascii", newline="")  # written by os.write
             log = cls(d, meta, fh, [], cfh)
             log._append_bytes((",".join(COLUMNS) + "\n").encode("utf-8"))
             log.save()

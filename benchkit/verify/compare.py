@@ -173,11 +173,32 @@ def condition_flags(claim: Claim, conds: dict) -> list[str]:
     return flags
 
 
+def condition_mismatches(claim: Claim, conds: dict) -> list[str]:
+    """The conditions (frequency, AC level, temperature) at which the claim and the
+    measurement differ beyond the tolerances above. A claim at other conditions says nothing
+    about this measurement: class-2 capacitance moves with each of them [common practice;
+    science notes: AC level (Rayleigh behaviour), temperature (EIA-198 class codes)]."""
+    out = []
+    f_m, a_m, t_m = conds.get("freq_Hz"), conds.get("ac_level_Vrms"), conds.get("temp_C")
+    if f_m is not None and abs(f_m - claim.freq_Hz) > FREQ_REL_TOL * claim.freq_Hz:
+        out.append(f"frequency {f_m:g} Hz measured, {claim.freq_Hz:g} Hz claimed")
+    if a_m is not None and abs(a_m - claim.ac_level_Vrms) > AC_LEVEL_REL_TOL * claim.ac_level_Vrms:
+        out.append(f"AC level {a_m:.3g} Vrms measured, {claim.ac_level_Vrms:g} Vrms claimed")
+    if t_m is not None and claim.temp_C is not None and abs(t_m - claim.temp_C) > TEMP_TOL_C:
+        out.append(f"temperature {t_m:.1f} degC measured, {claim.temp_C:g} degC claimed")
+    return out
+
+
 def verify(claim: Claim, samples: list[MeasuredSample], skipped: list[Skipped],
            tolerance: Tolerance, rule: str = "guarded", k: float = 2.0,
            meter_accuracy_pct: float = DEFAULT_METER_ACCURACY_PCT,
-           aging_k_pct: float | None = None, plan: SamplingPlan | None = None) -> Verification:
-    """Judge every sample at every claimed bias; then the lot."""
+           aging_k_pct: float | None = None, plan: SamplingPlan | None = None,
+           accept_other_conditions: bool = False) -> Verification:
+    """Judge every sample at every claimed bias; then the lot.
+
+    A sample measured at other conditions than the claim's is not decidable (its points are
+    shown, not judged), unless `accept_other_conditions` (the operator's explicit choice,
+    recorded in the report's notes and flags)."""
     if not (meter_accuracy_pct >= 0 and math.isfinite(meter_accuracy_pct)):
         raise UserError("meter accuracy must be a number >= 0 (percent of reading)")
     results = []
@@ -234,6 +255,16 @@ def verify(claim: Claim, samples: list[MeasuredSample], skipped: list[Skipped],
             pts.append(PointResult(V, float(claimed[j]), x, b, d, f_age, age_note))
         if not any(p.measured_F is not None for p in pts):
             flags.append("no claimed bias lies inside the measured range")
+        other = condition_mismatches(claim, s.conditions)
+        if other and accept_other_conditions:
+            flags.append("judged at other conditions by the operator's override "
+                         f"(--accept-other-conditions): {'; '.join(other)}")
+        elif other:
+            flags.append(f"not decidable: measured at other conditions ({'; '.join(other)}); "
+                         "measure at the claim's conditions, or override with --accept-other-conditions")
+            for j, p in enumerate(pts):
+                p.decision = decide(math.nan, math.nan, float(lo_all[j]), float(hi_all[j]), rule)
+                p.note = "; ".join(filter(None, [p.note, "conditions differ from the claim's"]))
         results.append(SampleResult(s, pts, flags))
     lv = lot_verdict([r.verdict for r in results], plan)
     notes = []
@@ -241,6 +272,10 @@ def verify(claim: Claim, samples: list[MeasuredSample], skipped: list[Skipped],
            for r in results for p in r.points):
         notes.append("points outside a sample's measured range are not decidable: curves are "
                      "never extrapolated")
+    if any(condition_mismatches(claim, r.sample.conditions) for r in results):
+        notes.append("OVERRIDE: samples measured at other conditions than the claim's were judged "
+                     "as if at the claim's (--accept-other-conditions)" if accept_other_conditions
+                     else "samples measured at other conditions than the claim's are not decidable")
     return Verification(claim, tolerance, rule, k, meter_accuracy_pct, results, skipped, lv,
                         plan, notes)
 

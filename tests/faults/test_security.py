@@ -69,7 +69,7 @@ def test_benchkit_sim_defaults_to_loopback():
 # -- nothing from a file reaches an instrument as a command ------------------------------------
 
 INJECTED_PART = "BD-1001;*RST;OUTP:ON"      # the parts file allows any id without spaces
-INJECTED_SAMPLE = 'FX-01";SYST:ERR?\n*RST'  # the plan allows any non-empty text
+INJECTED_SAMPLE = 'FX-01";SYST:ERR?;*RST'  # printable text; control characters are refused at load
 
 
 def test_ids_in_parts_fixture_and_plan_never_reach_an_instrument(tmp_path):

@@ -197,8 +197,8 @@ def test_fits_curve_save_on_a_full_disk_keeps_the_old_document(tmp_path, monkeyp
 # Every writer in benchkit/ and fits/ goes through the atomic helpers (a static check).
 
 ATOMIC_MODULES = {"benchkit/atomic.py", "fits/_atomic.py"}
-# points.csv is the one file written in place: appended row by row, fsync'ed, and on resume
-# cut back to its last whole row (documented in benchkit/sweep/runlog.py)
+# points.csv (and its digests, points.chain) are the files written in place: appended row by
+# row, fsync'ed, and on resume cut back to their last whole row (documented in benchkit/sweep/runlog.py)
 APPEND_ONLY = {"benchkit/sweep/runlog.py"}
 
 

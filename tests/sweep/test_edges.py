@@ -211,9 +211,19 @@ def test_edited_row_is_found_by_resume_and_fit(aborted, capsys, column):
 
 
 def test_resume_after_an_untouched_abort_completes(aborted, capsys):
+    done = read_rows(aborted)
     assert main(["measure", "--resume", str(aborted)]) == 0
     rows = read_rows(aborted)
     assert len(rows) == read_meta(aborted)["n_points_planned"]
+    # the interrupted branch restarts from 0 V through the points measured before the stop
+    first = rows[len(done)]
+    earlier = [float(r["bias_set_V"]) for r in done if r["sample_id"] == first["sample_id"]
+               and r["repeat"] == first["repeat"]]
+    restarts = [e for e in read_meta(aborted)["events"] if e["event"] == "resume_branch_restart"]
+    assert first["step_index"] != "0" and earlier  # the fault stops FX-04 mid-branch
+    assert restarts[0]["sample_id"] == first["sample_id"] and restarts[0]["retraced_V"] == earlier
+    assert "resumed" in first["flags"].split(";")
+    assert "restarts from 0 V" in capsys.readouterr().err
     read_run_dir(aborted)  # the chain of the finished run checks out
 
 
@@ -252,3 +262,18 @@ def test_fit_refuses_a_run_whose_chain_was_removed(aborted):
     (aborted / runlog.CHAIN_FILE).unlink()
     with pytest.raises(UserError, match="points.chain: missing"):
         read_run_dir(aborted)
+
+
+# --------------------------------------------------------------------------- memory
+
+
+def test_planned_points_are_made_when_asked_for_and_equal_the_full_list():
+    from benchkit.sweep.plan import PlannedPoint, PlannedPoints
+
+    seq = [("rising", 0.0), ("rising", 2.0), ("falling", 0.0)]
+    lazy = PlannedPoints("FX-01", seq, 1000)
+    full = tuple(PlannedPoint("FX-01", r, i, br, v) for r in range(1, 1001) for i, (br, v) in enumerate(seq))
+    assert len(lazy) == 3000 and lazy == full and tuple(lazy) == full
+    assert lazy[-1] == full[-1] and lazy[1500] == full[1500] and lazy[10:13] == full[10:13]
+    with pytest.raises(IndexError):
+        lazy[3000]
