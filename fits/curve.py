@@ -37,7 +37,8 @@ class Curve:
                  stats: Mapping | None = None, source: Mapping | None = None,
                  origin: str = "measured", part_id: str | None = None,
                  sample_id: str | None = None, branch: str | None = None,
-                 param_names=None, wideband=None, _where: str = "Curve"):
+                 param_names=None, wideband=None, model_error_F: float = 0.0,
+                 _where: str = "Curve"):
         where = _where
         names = param_names if param_names is not None else list(params)
         self.spec = doc.check_model(model, names, where)
@@ -48,6 +49,7 @@ class Curve:
         self.valid_range_V = doc.check_range(
             list(valid_range_V) if valid_range_V is not None else None, self.spec, self.params,
             where)
+        self.model_error_F = doc.check_model_error(model_error_F, where)
         self.conditions = doc.check_conditions(conditions, where)
         self.stats = doc.check_stats(stats, where)
         self.source = doc.check_source(source, where)
@@ -146,11 +148,13 @@ class Curve:
     # ---- uncertainty ---------------------------------------------------------------------
     def u_C(self, V, extrapolate: bool = False):
         """Standard uncertainty of C(V) in farads from the parameter covariance (delta
-        method: u^2 = J Sigma J^T with J = dC/dp, the model's jacobian). The band covers the
-        fitted curve's parameter uncertainty, not the scatter of single readings."""
+        method: u^2 = J Sigma J^T with J = dC/dp, the model's jacobian), plus the square of
+        the model-error term when the fit found that its law does not describe the data
+        (fits.quality). The band covers the fitted curve's uncertainty, not the scatter of
+        single readings."""
         V = self._check(V, extrapolate)
         J = self.spec.jacobian(np.ravel(V), self.params)
-        var = np.einsum("ij,jk,ik->i", J, self.covariance, J)
+        var = np.einsum("ij,jk,ik->i", J, self.covariance, J) + self.model_error_F**2
         u = np.sqrt(np.clip(var, 0.0, None)).reshape(np.shape(V))
         return _out(u, V)
 
@@ -185,6 +189,7 @@ class Curve:
             "params": {n: self.params[n] for n in self.param_names},
             "covariance": self.covariance.tolist(),
             "valid_range_V": list(self.valid_range_V),
+            "model_error_F": self.model_error_F,
             "conditions": self.conditions,
             "stats": self.stats,
             "source": self.source,
@@ -206,7 +211,8 @@ class Curve:
                    source=d.get("source"), origin=d.get("origin", "measured"),
                    part_id=d.get("part_id"), sample_id=d.get("sample_id"),
                    branch=d.get("branch"), param_names=d["param_names"],
-                   wideband=d.get("wideband"), _where=where)
+                   wideband=d.get("wideband"), model_error_F=d.get("model_error_F", 0.0),
+                   _where=where)
 
     @classmethod
     def from_json(cls, text: str, where: str = "curve document") -> "Curve":

@@ -1,8 +1,11 @@
 """The curve document (JSON): its fields and their checks.
 
     {"format": "benchkit-curve", "version": 1, "model", "param_names", "params",
-     "covariance", "valid_range_V", "conditions", "stats", "source", "origin",
-     "part_id", "sample_id", "branch", "wideband" (optional: fits/wideband.py)}
+     "covariance", "valid_range_V", "model_error_F", "conditions", "stats", "source",
+     "origin", "part_id", "sample_id", "branch", "wideband" (optional: fits/wideband.py)}
+
+model_error_F (optional, 0 when absent): the model-error term in farads that a fit adds to
+the band when its law does not describe the data (fits.quality); u_C includes it.
 
 A curve family (fits/family.py) holds such documents, one per temperature, under
 {"format": "benchkit-curve-family", "version", "interpolation", "temp_range_C", "curves"}.
@@ -132,6 +135,14 @@ def check_range(rng: Any, spec, params: Mapping[str, float], where: str) -> tupl
             _fail(where, "valid_range_V", f"a table is valid only between its points "
                                           f"({xs[0]:g} V to {xs[-1]:g} V)")
     return lo, hi
+
+
+def check_model_error(value: Any, where: str) -> float:
+    if value is None:
+        return 0.0
+    if not _finite(value) or float(value) < 0:
+        _fail(where, "model_error_F", f"must be a number >= 0 in farads, got {value!r}")
+    return float(value)
 
 
 def check_conditions(cond: Any, where: str) -> dict:

@@ -1,31 +1,41 @@
 """Fitting C(V) models to a bias sweep: one branch (fit_sweep) or both (fit_branches).
 
 How a fit is done, and why:
-- Solver: lmfit (Levenberg-Marquardt, `leastsq`) on the model's lmfit.Model with the model's
-  analytic jacobian, on capacitance divided by its largest value (every model is homogeneous
-  of degree 1 in its `_F` parameters, so this changes nothing but the conditioning). Tolerances are tight
-  (xtol = ftol = 1e-13) so the optimum does not depend on the solver's path.
+- Solver: fits.solver (MINPACK Levenberg-Marquardt with the model's analytic jacobian, simple
+  bounds held by an active set) on capacitance divided by its largest value (every model is
+  homogeneous of degree 1 in its `_F` parameters, so this changes nothing but the
+  conditioning). Tolerances are tight (xtol = ftol = 1e-13) so the optimum does not depend on
+  the solver's path. Models linear in their parameters (the polynomial) are solved exactly by
+  weighted linear least squares.
 - Weights: 1/sigma (fits.sweepdata: given sigma, else pooled repeat scatter, else none).
 - Parameters that end on a bound (e.g. C_p_F at 0) are held there and the fit redone, so the
   covariance is taken at an interior optimum; the report lists them as held.
 - Covariance: (J^T W J)^-1 from the analytic jacobian at the optimum, scaled by
-  fits.statistics.covariance_scale: chi2_red when unweighted, max(1, chi2_red) when weighted
-  (lmfit is run with scale_covar=False and this scaling is applied here, deliberately).
-- Choice: by BIC (lmfit's convention), lowest first, both within a family (polynomial
-  degree, Landau with or without C_p) and between families ("auto": tanh, poly, landau).
-  BIC rather than AIC because sweeps are short (10-40 points): with AIC degree-8
-  polynomials beat the true tanh law on two 13-point synthetic branches with 0.2 % noise,
-  with BIC they did not (a compact law with few parameters is what a curve library and a SPICE
-  export need). The ranking lists each family's best variant with its AIC and BIC.
+  fits.statistics.covariance_scale: chi2_red when unweighted, max(1, chi2_red) when weighted.
+- Choice, within a family (polynomial degree, variants of a law) and between families
+  ("auto": tanh, genjohnson, landau, poly), by how well each predicts the points it did not
+  see: the leave-one-out residual r_i/(1 - h_ii), h the hat matrix of the (linearised) fit,
+  exact for a linear model [published: standard regression texts]. The score is the mean of
+  the squared weighted leave-one-out residuals. Every candidate whose score is within one
+  standard error (of the paired differences) of the best counts as as good; among those the
+  compact laws come first, then the fewest free parameters, then the score. A polynomial
+  whose curve turns between the points where the data do not (fits.quality.turns on a fine
+  grid) is refused. Why not BIC any more: on 11-point branches BIC let degree 5-8 polynomials
+  win and follow the noise; prediction of unseen points does not reward that.
+- Lack of fit (fits.quality): structured residuals or chi-square far above expectation mark
+  the fit as not describing the data and add a model-error term to its band.
 - Valid range: the measured bias range. Nothing here extrapolates.
 - Curve.stats: the contract keys (r2, rms_pct_C0, max_resid_pct_C0, n_points, aic, bic; the
   percentages of C at the measured bias nearest 0 V) plus k_params, n_points_fit (both
   branches for a joint fit), chi2_red (dimensionless when weighted, the residual variance in
-  F^2 when unweighted), covar_scale, weighting, variant and, if any, held_at_bound.
+  F^2 when unweighted), covar_scale, weighting, variant, loo_rms (root mean square
+  leave-one-out residual, in units of sigma when weighted, farads when not), the lack-of-fit
+  statistics (describes_data, chi2_p, runs, runs_expected, runs_p, model_error_F), flat and,
+  if any, held_at_bound.
 - Hysteresis: fit_branches fits the rising and falling branches. For the tanh model the two
   share C_inf, C_pk and V0 and each has its own V_off (5 parameters in one fit); the other
-  families are fitted to each branch separately. Families are ranked by the BIC of the
-  combined residuals of both branches.
+  families are fitted to each branch separately. Families are compared on the leave-one-out
+  scores of both branches together.
 """
 
 from __future__ import annotations
@@ -35,25 +45,31 @@ from typing import Mapping
 
 import numpy as np
 
-from fits import models
+from fits import models, quality
 from fits.curve import Curve
 from fits.errors import FitError
 from fits.models.base import ModelSpec, Variant, is_capacitance_param
 from fits.report import format_fit_report, format_ranking
+from fits.solver import SolveError, solve
 from fits.statistics import covariance_scale, information_criteria, residual_stats
 from fits.sweepdata import BIAS_GROUP_TOL_V, SweepData, check_sweep
 
-AUTO_MODELS = ("tanh", "poly", "landau")
+AUTO_MODELS = ("tanh", "genjohnson", "landau", "poly")
 BRANCHES = ("rising", "falling")
-#: a free parameter this close (relative) to one of its bounds is held on the bound
-_BOUND_REL = 1e-7
 #: reciprocal condition number of the column-scaled weighted jacobian below which the
 #: parameters are taken as not determined by the data
 _MIN_RCOND = 1e-9
-_FIT_KWS = {"xtol": 1e-13, "ftol": 1e-13}
 #: with analytic jacobians converging fits need tens of evaluations; a fit of the wrong law
 #: that wanders is stopped here and reported as not converged
 _MAX_NFEV = 2000
+#: relative tolerances of the C(V) fits (MINPACK xtol, ftol): a change of 1e-10 in a
+#: parameter is far below any uncertainty a sweep gives
+_TOL = 1e-10
+#: leave-one-out scores are floored at (this * typical |C*w|)^2: noise-free data then tie
+#: at round-off instead of ranking by it
+_LOO_FLOOR_REL = 1e-10
+#: points of the fine grid on which a candidate's turns are counted
+_GRID = 400
 
 
 class _CannotFit(Exception):
@@ -78,12 +94,25 @@ class VariantFit:
     aic: float
     bic: float
     C_model_F: np.ndarray
-    lmfit_result: object | None = None
+    loo_scores: np.ndarray | None = None  # squared weighted leave-one-out residuals
     joint: str | None = None  # description when fitted jointly with the other branch
+    quality: dict = field(default_factory=dict)
 
     @property
     def dof(self) -> int:
         return self.n - self.k
+
+    @property
+    def loo(self) -> float:
+        return float(np.mean(self.loo_scores)) if self.loo_scores is not None else float("nan")
+
+    @property
+    def compact(self) -> bool:
+        return bool(getattr(self.spec, "compact", False)) or _is_flat(self)
+
+
+def _is_flat(vf: VariantFit) -> bool:
+    return vf.spec.name == "poly" and tuple(vf.spec.powers) == (0,)
 
 
 @dataclass
@@ -162,13 +191,18 @@ def fit_sweep(bias_V, C_F, sigma_F=None, model="auto", branch: str | None = None
     if not fits_by_family:
         where = f"{branch} branch" if branch else "sweep"
         raise FitError(f"{where}: " + "; ".join(skipped.values()))
-    ranking = sorted(((n, f.aic, f.bic) for n, f in fits_by_family.items()), key=lambda r: r[2])
+    for f in fits_by_family.values():
+        _assess(f, data)
+    order, table = _choose({n: f.loo_scores for n, f in fits_by_family.items()},
+                           {n: (f.compact, f.k, _is_flat(f), f.quality["describes_data"])
+                            for n, f in fits_by_family.items()})
+    ranking = [(n, fits_by_family[n].loo, fits_by_family[n].bic) for n in order]
+    chosen = order[0]
+    vf = fits_by_family[chosen]
+    _assess(vf, data)
     curves = {n: _curve_from(f, data, meta) for n, f in fits_by_family.items()}
-    chosen = ranking[0][0]
-    report = _report(branch, data, fits_by_family[chosen], curves[chosen], ranking, skipped,
-                     auto=len(families) > 1)
-    return FitOutcome(curves[chosen], ranking, report, data, fits_by_family[chosen], curves,
-                      skipped)
+    report = _report(branch, data, vf, curves[chosen], table, skipped, auto=len(families) > 1)
+    return FitOutcome(curves[chosen], ranking, report, data, vf, curves, skipped)
 
 
 def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shape: bool = True,
@@ -223,17 +257,27 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
             skipped[spec.name] = str(exc)
     if not results:
         raise FitError("rising and falling branches: " + "; ".join(skipped.values()))
+    scores, keys = {}, {}
+    for name, per in results.items():
+        scores[name] = np.concatenate([per[b].loo_scores for b in BRANCHES])
+        r, f = per["rising"], per["falling"]
+        k = r.k if r.joint else r.k + f.k
+        for b in BRANCHES:
+            _assess(per[b], datas[b])
+        keys[name] = (r.compact and f.compact, k, _is_flat(r) and _is_flat(f),
+                      r.quality["describes_data"] and f.quality["describes_data"])
+    order, table = _choose(scores, keys)
     ranking = []
-    for name, per_branch in results.items():
-        aic, bic = _combined_criteria(per_branch, datas)
-        ranking.append((name, aic, bic))
-    ranking.sort(key=lambda r: r[2])
-    chosen = ranking[0][0]
+    for name in order:
+        aic, bic = _combined_criteria(results[name], datas)
+        ranking.append((name, float(np.mean(scores[name])), bic))
+    chosen = order[0]
     outcomes = {}
     for b in BRANCHES:
         vf = results[chosen][b]
+        _assess(vf, datas[b])
         curves = {n: _curve_from(r[b], datas[b], dict(meta, branch=b)) for n, r in results.items()}
-        report = _report(b, datas[b], vf, curves[chosen], ranking, skipped,
+        report = _report(b, datas[b], vf, curves[chosen], table, skipped,
                          auto=len(families) > 1, notes=notes, combined=True)
         outcomes[b] = FitOutcome(curves[chosen], ranking, report, datas[b], vf, curves, skipped)
     report = "\n\n".join(o.report for o in outcomes.values())
@@ -241,7 +285,44 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
 
 
 # ---------------------------------------------------------------------------------------
-# one variant, one family
+# choice by leave-one-out prediction
+
+
+def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple]):
+    """Order candidates. keys[name] = (compact, k free parameters, flat, describes data).
+    The first is chosen among those as good as the best (within one standard error of the
+    paired differences of their leave-one-out scores) and, if any candidate describes the
+    data (fits.quality), among those that do: compact laws before others, then fewer
+    parameters, then the flat line, then lower score. The rest follow by score.
+    Returns (order, table rows)."""
+    names = list(scores)
+    S = np.array([scores[n] for n in names])
+    with np.errstate(invalid="ignore"):
+        mean = S.mean(axis=1)
+        ib = min(range(len(names)), key=lambda i: (mean[i], keys[names[i]][1]))
+        D = S - S[ib]
+        d_mean = D.mean(axis=1)
+        se = (D.std(axis=1, ddof=1) / np.sqrt(D.shape[1]) if D.shape[1] > 1
+              else np.zeros(len(names)))
+    means = {n: float(mean[i]) for i, n in enumerate(names)}
+    best = names[ib]
+    rows = {}
+    for i, n in enumerate(names):
+        rows[n] = {"name": n, "loo": means[n], "d_loo": float(d_mean[i]), "se": float(se[i]),
+                   "as_good": bool(d_mean[i] <= se[i]) or n == best, "compact": keys[n][0],
+                   "k": keys[n][1]}
+    good = [n for n in names if rows[n]["as_good"]]
+    describing = [n for n in names if keys[n][3]]
+    if describing:
+        # a law that describes the data within their noise beats one that does not, however
+        # close their scores: the 1-s.e. rule must not let a structured misfit win
+        good = [n for n in good if keys[n][3]] or [min(describing, key=lambda n: means[n])]
+    if any(keys[n][0] for n in good):
+        good = [n for n in good if keys[n][0]]
+    first = min(good, key=lambda n: (keys[n][1], not keys[n][2], means[n]))
+    rest = sorted((n for n in names if n != first), key=lambda n: means[n])
+    order = [first] + rest
+    return order, [rows[n] for n in order]
 
 
 def _families(model, candidates) -> list[ModelSpec]:
@@ -256,44 +337,92 @@ def _families(model, candidates) -> list[ModelSpec]:
 
 
 def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
-    """Fit every variant the family offers for this data; keep the lowest BIC.
-
-    For a family linear in its free parameters (the polynomial) the variants are first
-    ranked by the BIC of their exact weighted linear least-squares solution (numpy), and only
-    the best is then fitted through lmfit: same answer, a fraction of the work."""
+    """Fit every variant the family offers for this data and choose among them as between
+    families (leave-one-out score, simplest within one standard error); a polynomial whose
+    curve turns between the points where the data do not is refused."""
     variants = spec.variants(data.bias_V, data.C_F)
     if getattr(spec, "linear", False) and len(variants) > 1:
-        variants = [_linear_prescreen(variants, data)]
+        return _fit_linear(_linear_choice(variants, data), data)
     fits, reasons = [], []
+    allowed = None
+    start = None if getattr(spec, "linear", False) else spec.guess(
+        data.bias_V, data.C_F / float(np.max(data.C_F)))
     for variant in variants:
         try:
-            fits.append(_fit_variant(variant, data))
+            vf = _fit_variant(variant, data, start)
+            if start is not None and vf.spec is spec:
+                # the next, freer variant starts where this one ended (scaled space)
+                Cs = float(np.max(data.C_F))
+                start = {n: _scaled(n, v, Cs) for n, v in vf.params.items()}
         except _CannotFit as exc:
             reasons.append(str(exc))
+            continue
+        if not getattr(spec, "compact", False) and len(variants) > 1:
+            if allowed is None:
+                allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
+            grid = np.linspace(data.bias_V.min(), data.bias_V.max(), _GRID)
+            if quality.turns(vf.spec.C(grid, **vf.params)) > allowed:
+                reasons.append(f"{variant.label}: turns between the points where the data "
+                               "do not")
+                continue
+        fits.append(vf)
     if not fits:
         raise _CannotFit(reasons[0])  # the simplest variant's reason comes first
-    best = min(f.bic for f in fits)
-    # a variant whose extra parameter ran onto its bound ties with the simpler variant:
-    # report the simpler one
-    tied = [f for f in fits if f.bic <= best + 1e-6 * max(1.0, abs(best))]
-    return min(tied, key=lambda f: len(f.held))
+    if len(fits) == 1:
+        return fits[0]
+    by = {i: f for i, f in enumerate(fits)}
+    for f in fits:
+        _assess(f, data)
+    order, _ = _choose({i: f.loo_scores for i, f in by.items()},
+                       {i: (True, f.k, len(f.held), f.quality["describes_data"])
+                        for i, f in by.items()})
+    return by[order[0]]
 
 
-def _linear_prescreen(variants: list[Variant], data: SweepData) -> Variant:
+def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
+    """The polynomial variant chosen as _fit_family chooses, from exact leave-one-out
+    residuals of each variant's QR solution (no full fit per variant): the best by
+    _choose whose curve does not turn where the data do not."""
     w = data.weights
-    scored = []
-    for v in variants:
-        k = len(v.free_names)
+    yw = data.C_F * w
+    typical = float(np.sqrt(np.mean(yw**2)))
+    Vs = float(variants[0].fixed["V_scale_V"])
+    x = data.bias_V / Vs
+    top = max(v.spec.degree for v in variants)
+    X = x[:, None] ** np.arange(top + 1)[None, :] * w[:, None]
+    scores, keys, coefs = {}, {}, {}
+    for i, v in enumerate(variants):
+        k = len(v.spec.powers)
         if data.n <= k or data.n_distinct < k:
             continue
-        start = dict(v.spec.guess(data.bias_V, data.C_F), **v.fixed)
-        idx = [v.spec.param_names.index(n) for n in v.free_names]
-        A = v.spec.jacobian(data.bias_V, start)[:, idx] * w[:, None]
-        coef, *_ = np.linalg.lstsq(A, data.C_F * w, rcond=None)
-        chi2 = float(np.sum((A @ coef - data.C_F * w) ** 2))
-        _, bic = information_criteria(chi2, data.n, k, float(np.sqrt(np.mean((data.C_F * w) ** 2))))
-        scored.append((bic, v))
-    return min(scored, key=lambda t: t[0])[1] if scored else variants[0]
+        Q, R = np.linalg.qr(X[:, list(v.spec.powers)])
+        d = np.abs(np.diag(R))
+        if d.min() < _MIN_RCOND * d.max():
+            continue
+        coef = np.linalg.solve(R, Q.T @ yw)
+        h = np.einsum("ij,ij->i", Q, Q)
+        r = yw - Q @ (Q.T @ yw)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            e = np.where(h < 1.0 - 1e-9, r / (1.0 - h), np.inf)
+        scores[i] = np.maximum(e * e, (_LOO_FLOOR_REL * typical) ** 2)
+        keys[i] = (True, k, 0, True)
+        coefs[i] = coef
+    if not scores:
+        return variants[0]
+    allowed = None
+    grid = np.linspace(x.min(), x.max(), _GRID)
+    while True:
+        order, _ = _choose(scores, keys)
+        i = order[0]
+        if len(scores) == 1 or variants[i].spec.degree == 0:
+            return variants[i]
+        if allowed is None:
+            allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
+        dense = np.zeros(variants[i].spec.degree + 1)
+        dense[list(variants[i].spec.powers)] = coefs[i]
+        if quality.turns(np.polynomial.polynomial.polyval(grid, dense)) <= allowed:
+            return variants[i]
+        del scores[i], keys[i]  # turns between the points where the data do not
 
 
 def _require_points(data: SweepData, k: int, label: str) -> None:
@@ -309,87 +438,74 @@ def _scaled(name: str, value: float, Cs: float) -> float:
     return value / Cs if is_capacitance_param(name) else value
 
 
-def _at_bound(par) -> float | None:
-    for bound in (par.min, par.max):
-        if np.isfinite(bound) and abs(par.value - bound) <= _BOUND_REL * max(1.0, abs(bound)):
-            return float(bound)
-    return None
+def _bounds(spec: ModelSpec, V, y):
+    """(lower, upper) per parameter in the scaled space: the model's hints and data limits."""
+    hints = spec.hints()
+    lo = np.array([hints.get(n, {}).get("min", -np.inf) for n in spec.param_names], dtype=float)
+    hi = np.array([hints.get(n, {}).get("max", np.inf) for n in spec.param_names], dtype=float)
+    for n, (a, b) in spec.data_bounds(V, y).items():
+        j = spec.param_names.index(n)
+        lo[j], hi[j] = max(lo[j], a), min(hi[j], b)
+    return lo, hi
 
 
-def _fit_variant(variant: Variant, data: SweepData) -> VariantFit:
+def _fit_variant(variant: Variant, data: SweepData, start: Mapping | None = None) -> VariantFit:
+    """One variant; `start` = starting values in the scaled space (C / max C), else the
+    model's guess."""
     spec = variant.spec
     free = list(variant.free_names)
     _require_points(data, len(free), variant.label)
+    if getattr(spec, "linear", False):
+        return _fit_linear(variant, data)
+    names = spec.param_names
     Cs = float(np.max(data.C_F))
     y = data.C_F / Cs
-    w_scaled = None if data.sigma_F is None else Cs / data.sigma_F
-    model = spec.lmfit_model()
-    params = model.make_params()
-    start = spec.guess(data.bias_V, y)
-    for n, (lo, hi) in spec.data_bounds(data.bias_V, y).items():
-        params[n].set(min=max(lo, params[n].min), max=min(hi, params[n].max))
-    for n in spec.param_names:
-        if n in variant.fixed:
-            params[n].set(value=_scaled(n, float(variant.fixed[n]), Cs), vary=False)
-        else:
-            params[n].set(value=float(start[n]), vary=True)
+    w = np.ones(data.n) if data.sigma_F is None else Cs / data.sigma_F
+    V = data.bias_V
+    if start is None:
+        start = spec.guess(V, y)
+    lo, hi = _bounds(spec, V, y)
+    x0 = np.array([_scaled(n, float(variant.fixed[n]), Cs) if n in variant.fixed
+                   else float(start[n]) for n in names])
+    fixed_idx = [j for j, n in enumerate(names) if n in variant.fixed]
 
-    def dfun(pars, ydata, weights, V=None, **_):
-        vals = pars.valuesdict()
-        cols = [spec.param_names.index(n) for n, p in pars.items() if p.vary]
-        J = -spec.jacobian(V, vals)[:, cols]  # lmfit.Model's residual is (data - model)*w
-        return J if weights is None else J * weights[:, None]
+    def resid(x):
+        return (spec.C(V, **dict(zip(names, x))) - y) * w
 
-    fit_kws = dict(_FIT_KWS)
+    jac = None
     if spec.analytic_jacobian:
-        fit_kws["Dfun"] = dfun
-    held: list[str] = []
-    while True:
-        try:
-            result = model.fit(y, params, V=data.bias_V, weights=w_scaled, method="leastsq",
-                               scale_covar=False, nan_policy="raise", max_nfev=_MAX_NFEV,
-                               calc_covar=False, fit_kws=fit_kws)
-        except ValueError as exc:  # NaN from a wild trial step
-            raise _CannotFit(f"{variant.label}: the fit failed ({exc})") from None
-        if not _converged(result):
-            raise _CannotFit(f"{variant.label}: did not converge ({result.message})")
-        newly = _hold_at_bounds(result, params, free, held)
-        if not newly:
-            break
-        for n in newly:
-            free.remove(n)
-        if not free:
-            raise _CannotFit(f"{variant.label}: every parameter ran onto a bound")
-    values = {n: float(v) * (Cs if is_capacitance_param(n) else 1.0)
-              for n, v in result.params.valuesdict().items()}
-    J = spec.jacobian(data.bias_V, values)
-    free_idx = [spec.param_names.index(n) for n in free]
-    vf = _finish(variant.label, spec, values, J[:, free_idx], free_idx, tuple(free), tuple(held),
-                 data, spec.C(data.bias_V, **values))
-    vf.lmfit_result = result
-    return vf
+        def jac(x):
+            return spec.jacobian(V, dict(zip(names, x))) * w[:, None]
+
+    try:
+        sol = solve(resid, jac, x0, lo, hi, fixed=fixed_idx, max_nfev=_MAX_NFEV, xtol=_TOL,
+                    ftol=_TOL)
+    except SolveError as exc:
+        raise _CannotFit(f"{variant.label}: the fit failed ({exc})") from None
+    if not sol.converged:
+        raise _CannotFit(f"{variant.label}: did not converge ({sol.message})")
+    held = [names[j] for j in sol.held]
+    free = [n for n in free if n not in held]
+    values = {n: float(v) * (Cs if is_capacitance_param(n) else 1.0) for n, v in zip(names, sol.x)}
+    J = spec.jacobian(V, values)
+    free_idx = [names.index(n) for n in free]
+    return _finish(variant.label, spec, values, J[:, free_idx], free_idx, tuple(free),
+                   tuple(held), data, spec.C(V, **values))
 
 
-def _hold_at_bounds(result, params, free, held: list[str]) -> list[str]:
-    """Fix at its bound every free parameter the fit ran onto, start the next fit from this
-    one's values, and return the names newly held (appended to `held`): a parameter at a
-    bound has no honest standard error, so it is held and reported, not left to vary."""
-    newly = [(n, _at_bound(result.params[n])) for n in free]
-    newly = [(n, b) for n, b in newly if b is not None]
-    if newly:
-        for n, p in result.params.items():
-            params[n].set(value=p.value)
-        for n, b in newly:
-            params[n].set(value=b, vary=False)
-            held.append(n)
-    return [n for n, _ in newly]
-
-
-def _converged(result) -> bool:
-    """MINPACK's ier 1-4 are convergence; 6-8 say the tolerances (1e-13) are below what
-    double precision can still improve, i.e. the optimum is reached to round-off. ier 5 (too
-    many evaluations) and errors are failures."""
-    return bool(result.success) or getattr(result, "ier", None) in (6, 7, 8)
+def _fit_linear(variant: Variant, data: SweepData) -> VariantFit:
+    """Exact weighted linear least squares for a model linear in its free parameters."""
+    spec = variant.spec
+    free = list(variant.free_names)
+    start = dict(spec.guess(data.bias_V, data.C_F), **variant.fixed)
+    idx = [spec.param_names.index(n) for n in free]
+    A = spec.jacobian(data.bias_V, start)[:, idx]
+    w = data.weights
+    coef, *_ = np.linalg.lstsq(A * w[:, None], data.C_F * w, rcond=None)
+    values = dict(start)
+    values.update({n: float(c) for n, c in zip(free, coef)})
+    values = {n: float(values[n]) for n in spec.param_names}
+    return _finish(variant.label, spec, values, A, idx, tuple(free), (), data, A @ coef)
 
 
 def _unscaled_covariance(J_free: np.ndarray, w: np.ndarray, label: str) -> np.ndarray:
@@ -407,19 +523,41 @@ def _unscaled_covariance(J_free: np.ndarray, w: np.ndarray, label: str) -> np.nd
     return inv / np.outer(norms, norms)
 
 
+def _loo_scores(J_free, w, resid_w, cov_u, typical) -> np.ndarray:
+    """Squared weighted leave-one-out residuals r_i/(1 - h_ii), h = Jw (Jw^T Jw)^-1 Jw^T."""
+    Jw = J_free * w[:, None]
+    h = np.einsum("ij,jk,ik->i", Jw, cov_u, Jw)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        e = np.where(h < 1.0 - 1e-9, resid_w / (1.0 - h), np.inf)
+    return np.maximum(e * e, (_LOO_FLOOR_REL * typical) ** 2)
+
+
 def _finish(label, spec, values, J_free, free_idx, free, held, data, C_model) -> VariantFit:
-    """Covariance (scaled per fits.statistics.covariance_scale), chi2 and AIC/BIC."""
+    """Covariance (scaled per fits.statistics.covariance_scale), chi2, AIC/BIC and the
+    leave-one-out scores."""
     w = data.weights
     cov_u = _unscaled_covariance(J_free, w, label)
-    chi2, n, k = float(np.sum(((data.C_F - C_model) * w) ** 2)), data.n, len(free)
+    rw = (data.C_F - C_model) * w
+    chi2, n, k = float(np.sum(rw**2)), data.n, len(free)
     chi2_red = chi2 / (n - k)
     scale = covariance_scale(chi2_red, data.sigma_F is not None)
-    aic, bic = information_criteria(chi2, n, k, float(np.sqrt(np.mean((data.C_F * w) ** 2))))
+    typical = float(np.sqrt(np.mean((data.C_F * w) ** 2)))
+    aic, bic = information_criteria(chi2, n, k, typical)
     K = len(spec.param_names)
     cov = np.zeros((K, K))
     cov[np.ix_(free_idx, free_idx)] = cov_u * scale
     return VariantFit(label, spec, values, cov, free, held, chi2, n, k, chi2_red, scale, aic,
-                      bic, C_model)
+                      bic, C_model, _loo_scores(J_free, w, rw, cov_u, typical))
+
+
+def _assess(vf: VariantFit, data: SweepData) -> None:
+    """Lack-of-fit tests of the chosen fit on this branch (fits.quality)."""
+    if vf.quality:
+        return
+    dof = data.n - (vf.k * data.n / vf.n if vf.joint else vf.k)
+    q = quality.assess(data.bias_V, data.C_F - vf.C_model_F, data.sigma_F, int(round(dof)))
+    q["flat"] = _is_flat(vf)
+    vf.quality = q
 
 
 # ---------------------------------------------------------------------------------------
@@ -427,8 +565,6 @@ def _finish(label, spec, values, J_free, free_idx, free, held, data, C_model) ->
 
 
 def _fit_tanh_shared(rising: SweepData, falling: SweepData) -> dict[str, VariantFit]:
-    import lmfit
-
     spec = models.get("tanh")
     label = "tanh, shared shape"
     shared = ("C_inf_F", "C_pk_F", "V0_V")
@@ -436,39 +572,33 @@ def _fit_tanh_shared(rising: SweepData, falling: SweepData) -> dict[str, Variant
     if n_total <= 5 or min(rising.n_distinct, falling.n_distinct) < 2:
         raise _CannotFit(f"{label} needs more than 5 points and 2 or more biases per branch")
     Cs = float(max(rising.C_F.max(), falling.C_F.max()))
-    ys = {"rising": rising.C_F / Cs, "falling": falling.C_F / Cs}
-    ws = {b: (np.ones(d.n) if d.sigma_F is None else Cs / d.sigma_F)
-          for b, d in (("rising", rising), ("falling", falling))}
-    Vs = {"rising": rising.bias_V, "falling": falling.bias_V}
+    datas = {"rising": rising, "falling": falling}
+    ys = {b: d.C_F / Cs for b, d in datas.items()}
+    ws = {b: (np.ones(d.n) if d.sigma_F is None else Cs / d.sigma_F) for b, d in datas.items()}
+    Vs = {b: d.bias_V for b, d in datas.items()}
     g_r, g_f = spec.guess(Vs["rising"], ys["rising"]), spec.guess(Vs["falling"], ys["falling"])
     names = shared + ("V_off_rising_V", "V_off_falling_V")
-    params = lmfit.Parameters()
-    hints = spec.hints()
-    for n in shared:
-        params.add(n, value=0.5 * (g_r[n] + g_f[n]), **hints[n])
-    params.add("V_off_rising_V", value=g_r["V_off_V"])
-    params.add("V_off_falling_V", value=g_f["V_off_V"])
-    limits = spec.data_bounds(np.r_[Vs["rising"], Vs["falling"]],
-                              np.r_[ys["rising"], ys["falling"]])
-    for n, (lo, hi) in limits.items():
-        for target in ([n] if n in shared else ["V_off_rising_V", "V_off_falling_V"]):
-            params[target].set(min=max(lo, params[target].min), max=min(hi, params[target].max))
+    x0 = np.array([0.5 * (g_r[n] + g_f[n]) for n in shared] + [g_r["V_off_V"], g_f["V_off_V"]])
+    lo_s, hi_s = _bounds(spec, np.r_[Vs["rising"], Vs["falling"]],
+                         np.r_[ys["rising"], ys["falling"]])
+    pos = {n: spec.param_names.index(n) for n in spec.param_names}
+    lo = np.array([lo_s[pos[n]] for n in shared] + [lo_s[pos["V_off_V"]]] * 2)
+    hi = np.array([hi_s[pos[n]] for n in shared] + [hi_s[pos["V_off_V"]]] * 2)
 
-    def branch_params(vals, b):
-        p = {n: vals[n] for n in shared}
-        p["V_off_V"] = vals[f"V_off_{b}_V"]
+    def branch_params(x, b):
+        p = dict(zip(shared, x[:3]))
+        p["V_off_V"] = x[3] if b == "rising" else x[4]
         return p
 
-    def resid(pars):
-        vals = pars.valuesdict()
-        return np.concatenate([(spec.C(Vs[b], **branch_params(vals, b)) - ys[b]) * ws[b]
+    def resid(x):
+        return np.concatenate([(spec.C(Vs[b], **branch_params(x, b)) - ys[b]) * ws[b]
                                for b in BRANCHES])
 
-    def joint_jac(vals, weighted=True):
+    def joint_jac(x, weighted=True):
         """d(model)/d(joint parameter), rows rising then falling, columns in `names`."""
         blocks = []
         for b in BRANCHES:
-            J = spec.jacobian(Vs[b], branch_params(vals, b))
+            J = spec.jacobian(Vs[b], branch_params(x, b))
             if weighted:
                 J = J * ws[b][:, None]
             full = np.zeros((J.shape[0], 5))
@@ -477,37 +607,29 @@ def _fit_tanh_shared(rising: SweepData, falling: SweepData) -> dict[str, Variant
             blocks.append(full)
         return np.vstack(blocks)
 
-    def dfun(pars):
-        cols = [names.index(n) for n, p in pars.items() if p.vary]
-        return joint_jac(pars.valuesdict())[:, cols]
-
-    held: list[str] = []
-    while True:
-        result = lmfit.Minimizer(resid, params, nan_policy="raise", max_nfev=_MAX_NFEV,
-                                 calc_covar=False).minimize(method="leastsq", Dfun=dfun,
-                                                            **_FIT_KWS)
-        if not _converged(result):
-            raise _CannotFit(f"{label}: did not converge ({result.message})")
-        if not _hold_at_bounds(result, params, [n for n in names if result.params[n].vary], held):
-            break
-        if len(held) == len(names):
-            raise _CannotFit(f"{label}: every parameter ran onto a bound")
-    vals = {n: v * (Cs if is_capacitance_param(n) else 1.0)
-            for n, v in result.params.valuesdict().items()}
+    try:
+        sol = solve(resid, joint_jac, x0, lo, hi, max_nfev=_MAX_NFEV)
+    except SolveError as exc:
+        raise _CannotFit(f"{label}: the fit failed ({exc})") from None
+    if not sol.converged:
+        raise _CannotFit(f"{label}: did not converge ({sol.message})")
+    held = [names[j] for j in sol.held]
+    x = np.array([v * (Cs if is_capacitance_param(n) else 1.0) for n, v in zip(names, sol.x)])
     free_joint = [n for n in names if n not in held]
     free_idx = [names.index(n) for n in free_joint]
-    datas = {"rising": rising, "falling": falling}
-    # covariance of the joint fit in farads and volts, from the analytic jacobian
     w_all = np.concatenate([datas[b].weights for b in BRANCHES])
-    cov_u = _unscaled_covariance(joint_jac(vals, weighted=False)[:, free_idx], w_all, label)
-    C_models = {b: spec.C(Vs[b], **branch_params(vals, b)) for b in BRANCHES}
-    chi2 = float(sum(np.sum(((datas[b].C_F - C_models[b]) * datas[b].weights) ** 2)
-                     for b in BRANCHES))
+    J_all = joint_jac(x, weighted=False)[:, free_idx]
+    cov_u = _unscaled_covariance(J_all, w_all, label)
+    C_models = {b: spec.C(Vs[b], **branch_params(x, b)) for b in BRANCHES}
+    rw = np.concatenate([(datas[b].C_F - C_models[b]) * datas[b].weights for b in BRANCHES])
+    chi2 = float(np.sum(rw**2))
     k = len(free_joint)
     chi2_red = chi2 / (n_total - k)
     scale = covariance_scale(chi2_red, rising.sigma_F is not None)
     C_all = np.concatenate([datas[b].C_F * datas[b].weights for b in BRANCHES])
-    aic, bic = information_criteria(chi2, n_total, k, float(np.sqrt(np.mean(C_all**2))))
+    typical = float(np.sqrt(np.mean(C_all**2)))
+    aic, bic = information_criteria(chi2, n_total, k, typical)
+    loo = _loo_scores(J_all, w_all, rw, cov_u, typical)
     cov_joint = np.zeros((5, 5))
     cov_joint[np.ix_(free_idx, free_idx)] = cov_u * scale
 
@@ -519,11 +641,12 @@ def _fit_tanh_shared(rising: SweepData, falling: SweepData) -> dict[str, Variant
     out = {}
     for b in BRANCHES:
         sel = [0, 1, 2, 3 if b == "rising" else 4]
-        p = branch_params(vals, b)
+        p = branch_params(x, b)
+        rows = slice(0, rising.n) if b == "rising" else slice(rising.n, n_total)
         out[b] = VariantFit(
             label, spec, {n: float(p[n]) for n in spec.param_names},
             cov_joint[np.ix_(sel, sel)], own(free_joint, b), own(held, b), chi2, n_total, k,
-            chi2_red, scale, aic, bic, C_models[b], result,
+            chi2_red, scale, aic, bic, C_models[b], loo[rows],
             joint="rising and falling fitted together: C_inf_F, C_pk_F, V0_V shared, "
                   "V_off_V per branch")
     return out
@@ -590,6 +713,13 @@ def _curve_from(vf: VariantFit, data: SweepData, meta: Mapping) -> Curve:
         "n_points_fit": vf.n, "chi2_red": vf.chi2_red, "covar_scale": vf.covar_scale,
         "weighting": data.weighting, "variant": vf.label,
     })
+    if vf.loo_scores is not None:
+        rms = float(np.sqrt(vf.loo))
+        stats["loo_rms"] = rms
+    model_error = 0.0
+    if vf.quality:
+        stats.update(vf.quality)
+        model_error = float(vf.quality.get("model_error_F") or 0.0)
     if vf.held:
         stats["held_at_bound"] = list(vf.held)
     source = dict(meta.get("source") or {})
@@ -602,7 +732,8 @@ def _curve_from(vf: VariantFit, data: SweepData, meta: Mapping) -> Curve:
                  origin=meta.get("origin") or "measured",
                  part_id=meta.get("part_id") or source.get("part_id"),
                  sample_id=meta.get("sample_id") or source.get("sample_id"),
-                 branch=meta.get("branch"), param_names=vf.spec.param_names)
+                 branch=meta.get("branch"), param_names=vf.spec.param_names,
+                 model_error_F=model_error)
 
 
 def _report(branch, data, vf, curve, ranking, skipped, *, auto, notes=(), combined=False):

@@ -5,19 +5,37 @@ from __future__ import annotations
 import numpy as np
 
 
-def format_ranking(ranking, skipped, *, auto: bool, combined: bool = False) -> list[str]:
+def format_ranking(rows, skipped, *, auto: bool, combined: bool = False) -> list[str]:
+    """The model-choice table: rows as fits.fitting._choose gives them, chosen first."""
     if not auto:
         return []
-    what = "both branches together, " if combined else ""
-    lines = [f"Model choice ({what}lowest BIC first; AIC/BIC in lmfit's convention):",
-             f"  {'model':<8} {'AIC':>12} {'BIC':>12} {'dBIC':>9}"]
-    best = ranking[0][2]
-    for i, (name, aic, bic) in enumerate(ranking):
-        mark = "   <- chosen" if i == 0 else ""
-        lines.append(f"  {name:<8} {aic:12.2f} {bic:12.2f} {bic - best:9.2f}{mark}")
+    what = "both branches together; " if combined else ""
+    lines = [f"Model choice ({what}leave-one-out prediction error; the simplest compact law "
+             "within one standard error of the best is chosen):",
+             f"  {'model':<11} {'k':>3} {'LOO score':>12} {'excess':>10} {'1 s.e.':>10}"]
+    for i, r in enumerate(rows):
+        mark = "   <- chosen" if i == 0 else ("   as good" if r["as_good"] else "")
+        lines.append(f"  {r['name']:<11} {r['k']:>3} {r['loo']:12.4g} {r['d_loo']:10.3g} "
+                     f"{r['se']:10.3g}{mark}")
     for name, reason in skipped.items():
-        lines.append(f"  {name:<8} not fitted: {reason}")
+        lines.append(f"  {name:<11} not fitted: {reason}")
     return lines
+
+
+def verdict(stats) -> str:
+    """One line on whether the fitted law describes the data (from Curve.stats)."""
+    if stats.get("flat"):
+        return ("flat within noise: C does not change with bias beyond the scatter "
+                "(R^2 means nothing for a flat part)")
+    if stats.get("describes_data", True):
+        return "the model describes the data within their noise"
+    parts = []
+    if stats.get("chi2_p") is not None:
+        parts.append(f"chi2 p = {stats['chi2_p']:.2g}")
+    parts.append(f"{stats.get('runs')} runs of residual signs, {stats.get('runs_expected', 0):.1f} "
+                 f"expected (p = {stats.get('runs_p', float('nan')):.2g})")
+    return ("LACK OF FIT: the model does not describe the data (" + ", ".join(parts) +
+            f"); the band includes a model-error term of {stats.get('model_error_F', 0.0):.3g} F")
 
 
 def format_fit_report(branch, data, vf, curve, head: list[str], notes: list[str]) -> str:
@@ -26,8 +44,9 @@ def format_fit_report(branch, data, vf, curve, head: list[str], notes: list[str]
     lines = [f"{curve.model} fit, {where}: {data.n} points at {data.n_distinct} bias values "
              f"from {lo:g} V to {hi:g} V; weights: {data.weighting}"]
     lines += head
-    lines.append(f"Variant: {vf.label}" + (" (chosen within the family by BIC)"
-                                            if curve.model in ("poly", "landau") else ""))
+    lines.append(f"Variant: {vf.label}" + (" (chosen within the family by leave-one-out error)"
+                                            if curve.model in ("poly", "landau", "genjohnson")
+                                            else ""))
     if vf.joint:
         lines.append(f"Joint fit: {vf.joint}")
     if curve.model == "table":
@@ -79,6 +98,7 @@ def format_fit_report(branch, data, vf, curve, head: list[str], notes: list[str]
         + f" (dof {vf.dof})")
     lines.append(f"Valid bias range: {lo:g} V to {hi:g} V (the measured range; "
                  "no extrapolation)")
+    lines.append(f"Verdict: {verdict(s)}")
     for note in notes:
         lines.append(f"Note: {note}")
     return "\n".join(lines)

@@ -15,6 +15,7 @@ Weighting, in order of preference:
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -37,7 +38,7 @@ class SweepData:
     def n(self) -> int:
         return int(self.bias_V.size)
 
-    @property
+    @cached_property
     def n_distinct(self) -> int:
         return int(np.unique(np.round(self.bias_V / BIAS_GROUP_TOL_V)).size)
 

@@ -9,7 +9,11 @@ machine changes the times but not what they are compared against:
 - overhead: the engine's wall time per measured point against a bare pyvisa query round trip
   to the same simulated meter (overhead.py);
 - fits: fits per second of fits.fit_sweep against a bare scipy.optimize.curve_fit of the
-  same model on the same 41-point sweep (fit_speed.py);
+  same model on the same 41-point sweep, and milliseconds per "auto" choice (fit_speed.py);
+- strd: matched digits of the fitting engine on the NIST StRD nonlinear regression
+  datasets (strd.py);
+- independent_truths: auto fits on shapes none of the models is: worst error and band
+  coverage (independent_truths.py);
 - library_query: the curve library's vectorised query over many curves
   (benchkit.library.benchmark_query).
 

@@ -43,6 +43,18 @@ def _fits(out_dir, quick, parts, log):
     return fit_speed.run(out_dir, quick=quick, log=log)
 
 
+def _strd(out_dir, quick, parts, log):
+    from benchkit.benchmarks import strd
+
+    return strd.run(out_dir, quick=quick, log=log)
+
+
+def _truths(out_dir, quick, parts, log):
+    from benchkit.benchmarks import independent_truths
+
+    return independent_truths.run(out_dir, quick=quick, log=log)
+
+
 def _library(out_dir, quick, parts, log):
     try:
         from benchkit.library import benchmark_query
@@ -67,6 +79,8 @@ BENCHMARKS: dict[str, Callable] = {
     "bench_time": _bench_time,
     "overhead": _overhead,
     "fits": _fits,
+    "strd": _strd,
+    "independent_truths": _truths,
     "library_query": _library,
     "soak": _soak,
 }

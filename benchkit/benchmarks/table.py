@@ -75,7 +75,34 @@ def format_table(results: dict) -> str:
             for name, r in fs["models"].items():
                 lines.append(f"  {name:8} {r['fit_sweep_per_s']:12.1f} {r['curve_fit_per_s']:12.1f} "
                              f"{r['curve_fit_over_fit_sweep']:7.1f}")
-            lines.append(f"  auto (three families, BIC choice): {fs['auto_fit_sweep_per_s']:.1f} fits/s")
+            lines.append(f"  auto (every family, leave-one-out choice): {fs['auto_fit_sweep_per_s']:.1f} "
+                         f"fits/s = {fs['auto_ms_per_sweep']:.1f} ms per sweep (target "
+                         f"{fs['auto_target_ms']:g} ms: {'met' if fs['auto_within_target'] else 'NOT met'})")
+        lines.append("")
+    sd = b.get("strd")
+    if sd is not None:
+        lines.append("NIST StRD nonlinear regression: matched digits (LRE) of fits.solver, params / RSS")
+        if "error" in sd:
+            lines.append(f"  FAILED: {sd['error']}")
+        else:
+            from benchkit.benchmarks.strd import format_rows
+
+            lines += format_rows(sd["datasets"])
+            lines.append(f"  every dataset >= {sd['min_lre_required']:g} digits from a certified "
+                         f"start: {'yes' if sd['all_ok'] else 'NO'}")
+        lines.append("")
+    it = b.get("independent_truths")
+    if it is not None:
+        lines.append("Independent truths (shapes none of the models is), auto fits")
+        if "error" in it:
+            lines.append(f"  FAILED: {it['error']}")
+        else:
+            lines.append(f"  {it['n_per_branch']} points per branch, {100 * it['noise_frac']:g} % noise, "
+                         f"{it['seeds']} seeds, both branches")
+            for fam, r in it["families"].items():
+                lines.append(f"  {fam:<14} worst {r['worst_err_pct_C0']:6.3f} % of C0, band covers "
+                             f">= {100 * r['min_coverage']:5.1f} %, lack of fit said "
+                             f"{r['said_lack_of_fit']}/{r['fits']}, models {r['models']}")
         lines.append("")
     lq = b.get("library_query")
     if lq is not None:

@@ -4,7 +4,7 @@
     spec = models.get("tanh")            # or get("poly", degree=4, even=True)
     spec.C(V, **params); spec.Q(V, **params); spec.spice_charge(params, "V(a,b)")
     f, free = spec.as_positional(fixed)  # for scipy.optimize.curve_fit(f, V, C, p0=...)
-    models.names()                       # ['landau', 'poly', 'table', 'tanh']
+    models.names()    # ['genjohnson', 'landau', 'poly', 'table', 'tanh']
 
 A new model is one module with a ModelSpec subclass and one register() call below.
 """
@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from fits.errors import ModelError
 from fits.models.base import ModelSpec, Variant
+from fits.models.genjohnson import GenJohnsonModel
 from fits.models.landau import LandauModel
 from fits.models.poly import PolyModel
 from fits.models.table import TableModel
@@ -45,7 +46,7 @@ def names() -> list[str]:
     return sorted(_REGISTRY)
 
 
-for _spec in (TanhModel(), PolyModel(), LandauModel(), TableModel()):
+for _spec in (TanhModel(), PolyModel(), LandauModel(), GenJohnsonModel(), TableModel()):
     register(_spec)
 
 __all__ = ["ModelSpec", "Variant", "register", "get", "names"]

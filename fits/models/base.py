@@ -100,6 +100,9 @@ class ModelSpec:
     analytic_jacobian: bool = False
     #: include in model="auto" (the table model is an interpolant, not a fitted law)
     fitted: bool = True
+    #: a compact physical law (few parameters, at most one peak), preferred by model="auto"
+    #: over the polynomial when it predicts unseen points as well
+    compact: bool = False
 
     # ---- the maths -------------------------------------------------------------------
     def C(self, V, **params):

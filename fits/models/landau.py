@@ -40,6 +40,7 @@ class LandauModel(ModelSpec):
     title = "Landau-type (Johnson): C0/(1 + (V/V_k)^2)^(1/3) + C_p"
     param_names = ("C0_F", "V_k_V", "C_p_F")
     analytic_jacobian = True
+    compact = True
 
     def C(self, V, C0_F, V_k_V, C_p_F):
         u = np.asarray(V, dtype=float) / V_k_V

@@ -8,11 +8,13 @@ Scaling keeps the monomial basis on [-1, 1] (or [0, 1]) and the fit well conditi
 (scaling to V/V_max as for the even-polynomial permittivity law eps(0)*(1 + a2*E^2 + a4*E^4)).
 V_scale_V is stored with the coefficients but never fitted (its covariance row is zero).
 
-Degree. `variants()` offers degrees 1..8 (at most n_distinct_bias - 3, so at least two degrees
-of freedom are left over the distinct biases); when the sweep is bipolar and its bias values
-are symmetric about 0 V it also offers even-only polynomials (powers 0, 2, 4, ...), since an
-anhysteretic C(V) is even in V. The fitter picks among these variants by BIC
-(fits.fitting), which penalises extra coefficients more than AIC and so resists overfitting.
+Degree. `variants()` offers the flat line (degree 0) and degrees 1..8 (at most
+n_distinct_bias - 3, so at least two degrees of freedom are left over the distinct biases);
+when the sweep is bipolar and its bias values are symmetric about 0 V it also offers even-only
+polynomials (powers 0, 2, 4, ...), since an anhysteretic C(V) is even in V. The fitter picks
+among these variants by leave-one-out prediction error, the lowest degree within one standard
+error of the best, and refuses a degree whose curve turns between the points where the data
+do not (fits.fitting).
 """
 
 from __future__ import annotations
@@ -127,7 +129,9 @@ class PolyModel(ModelSpec):
         # keep at least 2 degrees of freedom over the distinct biases (one would leave the
         # residual scatter, and so the uncertainty, resting on a single chi-square draw)
         top = max(1, min(self.max_degree, distinct.size - 3))
-        out = [Variant(PolyModel(range(d + 1)), fixed, f"poly degree {d}") for d in range(1, top + 1)]
+        # degree 0 is the flat line: a part flat within noise (class 1) is reported as flat
+        out = [Variant(PolyModel([0]), fixed, "poly degree 0 (flat)")]
+        out += [Variant(PolyModel(range(d + 1)), fixed, f"poly degree {d}") for d in range(1, top + 1)]
         if symmetric_bipolar(V):
             n_abs = np.unique(np.abs(distinct)).size
             m_top = min(self.max_degree // 2, n_abs - 3)

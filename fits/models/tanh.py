@@ -24,6 +24,7 @@ class TanhModel(ModelSpec):
     title = "tanh-type: C_inf + (C_pk - C_inf)*sech^2((V - V_off)/V0)"
     param_names = ("C_inf_F", "C_pk_F", "V0_V", "V_off_V")
     analytic_jacobian = True
+    compact = True
 
     def C(self, V, C_inf_F, C_pk_F, V0_V, V_off_V):
         V = np.asarray(V, dtype=float)
