@@ -68,6 +68,11 @@ _TOL = 1e-10
 #: leave-one-out scores are floored at (this * typical |C*w|)^2: noise-free data then tie
 #: at round-off instead of ranking by it
 _LOO_FLOOR_REL = 1e-10
+#: "as good as the best" = leave-one-out excess within this many standard errors. The usual
+#: one-standard-error rule, widened by half: on 30-point sweeps of a Landau-type truth the
+#: five-parameter law's extra peak position bought a 1.06-s.e. lower score from the noise
+#: alone (tests/fits/test_recovery_coverage.py), so 1 s.e. still let noise pick the freer law
+_SE_RULE = 1.5
 #: points of the fine grid on which a candidate's turns are counted
 _GRID = 400
 
@@ -309,7 +314,7 @@ def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple]):
     rows = {}
     for i, n in enumerate(names):
         rows[n] = {"name": n, "loo": means[n], "d_loo": float(d_mean[i]), "se": float(se[i]),
-                   "as_good": bool(d_mean[i] <= se[i]) or n == best, "compact": keys[n][0],
+                   "as_good": bool(d_mean[i] <= _SE_RULE * se[i]) or n == best, "compact": keys[n][0],
                    "k": keys[n][1]}
     good = [n for n in names if rows[n]["as_good"]]
     describing = [n for n in names if keys[n][3]]

@@ -130,7 +130,8 @@ class PolyModel(ModelSpec):
         # residual scatter, and so the uncertainty, resting on a single chi-square draw)
         top = max(1, min(self.max_degree, distinct.size - 3))
         # degree 0 is the flat line: a part flat within noise (class 1) is reported as flat
-        out = [Variant(PolyModel([0]), fixed, "poly degree 0 (flat)")]
+        # (from 3 distinct biases: two readings say nothing about flatness)
+        out = [Variant(PolyModel([0]), fixed, "poly degree 0 (flat)")] if distinct.size >= 3 else []
         out += [Variant(PolyModel(range(d + 1)), fixed, f"poly degree {d}") for d in range(1, top + 1)]
         if symmetric_bipolar(V):
             n_abs = np.unique(np.abs(distinct)).size

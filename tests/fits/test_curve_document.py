@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 from fits import Curve, CurveDocumentError, OutOfRange, fit_sweep, models
 
 CONTRACT_KEYS = {"format", "version", "model", "param_names", "params", "covariance",
-                 "valid_range_V", "conditions", "stats", "source", "origin", "part_id",
+                 "valid_range_V", "model_error_F", "conditions", "stats", "source", "origin", "part_id",
                  "sample_id", "branch"}
 
 

@@ -30,7 +30,7 @@ def spec_of(name):
 
 
 def test_registry_names_and_lookup():
-    assert models.names() == ["landau", "poly", "table", "tanh"]
+    assert models.names() == ["genjohnson", "landau", "poly", "table", "tanh"]
     with pytest.raises(KeyError, match="known models"):
         models.get("nonesuch")
     with pytest.raises(ValueError, match="already registered"):
