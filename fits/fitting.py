@@ -34,8 +34,8 @@ How a fit is done, and why:
   if any, held_at_bound.
 - Hysteresis: fit_branches fits the rising and falling branches. For the tanh model the two
   share C_inf, C_pk and V0 and each has its own V_off (5 parameters in one fit); the other
-  families are fitted to each branch separately. Families are compared on the leave-one-out
-  scores of both branches together.
+  families are fitted to each branch separately. Each branch chooses its family on its own
+  leave-one-out scores (BranchOutcome.ranking is the rising branch's).
 """
 
 from __future__ import annotations
@@ -73,6 +73,10 @@ _LOO_FLOOR_REL = 1e-10
 #: five-parameter law's extra peak position bought a 1.06-s.e. lower score from the noise
 #: alone (tests/fits/test_recovery_coverage.py), so 1 s.e. still let noise pick the freer law
 _SE_RULE = 1.5
+#: ... and a score at most this multiple of the best: with heavy-tailed scores (one point a
+#: law cannot follow) the standard error grows with the misfit and alone would call a law
+#: 10^4 times worse "as good"
+_AS_GOOD_RATIO = 2.0
 #: points of the fine grid on which a candidate's turns are counted
 _GRID = 400
 
@@ -262,29 +266,31 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
             skipped[spec.name] = str(exc)
     if not results:
         raise FitError("rising and falling branches: " + "; ".join(skipped.values()))
-    scores, keys = {}, {}
-    for name, per in results.items():
-        scores[name] = np.concatenate([per[b].loo_scores for b in BRANCHES])
-        r, f = per["rising"], per["falling"]
-        k = r.k if r.joint else r.k + f.k
-        for b in BRANCHES:
-            _assess(per[b], datas[b])
-        keys[name] = (r.compact and f.compact, k, _is_flat(r) and _is_flat(f),
-                      r.quality["describes_data"] and f.quality["describes_data"])
-    order, table = _choose(scores, keys)
-    ranking = []
-    for name in order:
-        aic, bic = _combined_criteria(results[name], datas)
-        ranking.append((name, float(np.mean(scores[name])), bic))
-    chosen = order[0]
     outcomes = {}
+    rankings = {}
     for b in BRANCHES:
+        # each branch chooses its own law: the two legs of a hysteretic loop need not be
+        # described equally well by the same family (the falling leg near its turn)
+        scores, keys = {}, {}
+        for name, per in results.items():
+            vf = per[b]
+            _assess(vf, datas[b])
+            k = vf.k * datas[b].n / vf.n if vf.joint else vf.k
+            scores[name] = vf.loo_scores
+            keys[name] = (vf.compact, k, _is_flat(vf), vf.quality["describes_data"])
+        order, table = _choose(scores, keys)
+        ranking = []
+        for name in order:
+            aic, bic = _combined_criteria(results[name], datas)
+            ranking.append((name, float(np.mean(scores[name])), bic))
+        rankings[b] = ranking
+        chosen = order[0]
         vf = results[chosen][b]
-        _assess(vf, datas[b])
         curves = {n: _curve_from(r[b], datas[b], dict(meta, branch=b)) for n, r in results.items()}
         report = _report(b, datas[b], vf, curves[chosen], table, skipped,
-                         auto=len(families) > 1, notes=notes, combined=True)
+                         auto=len(families) > 1, notes=notes)
         outcomes[b] = FitOutcome(curves[chosen], ranking, report, datas[b], vf, curves, skipped)
+    ranking = rankings["rising"]
     report = "\n\n".join(o.report for o in outcomes.values())
     return BranchOutcome(outcomes, ranking, report)
 
@@ -298,7 +304,8 @@ def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple]):
     The first is chosen among those as good as the best (within one standard error of the
     paired differences of their leave-one-out scores) and, if any candidate describes the
     data (fits.quality), among those that do: compact laws before others, then fewer
-    parameters, then the flat line, then lower score. The rest follow by score.
+    parameters, then the flat line, then lower score. When none describes the data the
+    lowest score is chosen. The rest follow by score.
     Returns (order, table rows)."""
     names = list(scores)
     S = np.array([scores[n] for n in names])
@@ -314,7 +321,8 @@ def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple]):
     rows = {}
     for i, n in enumerate(names):
         rows[n] = {"name": n, "loo": means[n], "d_loo": float(d_mean[i]), "se": float(se[i]),
-                   "as_good": bool(d_mean[i] <= _SE_RULE * se[i]) or n == best, "compact": keys[n][0],
+                   "as_good": bool(d_mean[i] <= _SE_RULE * se[i]
+                                   and mean[i] <= _AS_GOOD_RATIO * mean[ib]) or n == best, "compact": keys[n][0],
                    "k": keys[n][1]}
     good = [n for n in names if rows[n]["as_good"]]
     describing = [n for n in names if keys[n][3]]
@@ -322,6 +330,9 @@ def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple]):
         # a law that describes the data within their noise beats one that does not, however
         # close their scores: the 1-s.e. rule must not let a structured misfit win
         good = [n for n in good if keys[n][3]] or [min(describing, key=lambda n: means[n])]
+    else:
+        # nothing describes the data: no preference is earned, the best predictor is chosen
+        good = [best]
     if any(keys[n][0] for n in good):
         good = [n for n in good if keys[n][0]]
     first = min(good, key=lambda n: (keys[n][1], not keys[n][2], means[n]))
@@ -366,7 +377,8 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
             if allowed is None:
                 allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
             grid = np.linspace(data.bias_V.min(), data.bias_V.max(), _GRID)
-            if quality.turns(vf.spec.C(grid, **vf.params)) > allowed:
+            tol = _turn_tol(data)
+            if quality.turns(vf.spec.C(grid, **vf.params), tol) > allowed:
                 reasons.append(f"{variant.label}: turns between the points where the data "
                                "do not")
                 continue
@@ -416,6 +428,7 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
         return variants[0]
     allowed = None
     grid = np.linspace(x.min(), x.max(), _GRID)
+    tol = _turn_tol(data)
     while True:
         order, _ = _choose(scores, keys)
         i = order[0]
@@ -425,9 +438,18 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
             allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
         dense = np.zeros(variants[i].spec.degree + 1)
         dense[list(variants[i].spec.powers)] = coefs[i]
-        if quality.turns(np.polynomial.polynomial.polyval(grid, dense)) <= allowed:
+        if quality.turns(np.polynomial.polynomial.polyval(grid, dense), tol) <= allowed:
             return variants[i]
         del scores[i], keys[i]  # turns between the points where the data do not
+
+
+def _turn_tol(data: SweepData) -> float:
+    """The swing below which a candidate's change of direction is not counted as a turn:
+    twice the noise (no turn the data could refute) but at least 0.1 % of C, a ripple below
+    any class-2 tolerance (IEC 60062 F is +-1 %) and below the accuracy a fit claims
+    [common practice]."""
+    floor = 1e-3 * float(np.max(data.C_F))
+    return floor if data.sigma_F is None else max(floor, 2.0 * float(np.median(data.sigma_F)))
 
 
 def _require_points(data: SweepData, k: int, label: str) -> None:

@@ -93,20 +93,45 @@ def assess(bias_V, resid_F, sigma_F, dof: int) -> dict:
     return out
 
 
-def turns(C_on_grid, rel_tol: float = 1e-9) -> int:
-    """Interior extrema of a curve sampled on a fine grid (sign changes of its slope)."""
+def turns(C_on_grid, tol_F: float = 0.0, rel_tol: float = 1e-9) -> int:
+    """Turns of a curve sampled on a fine grid: changes of direction after the curve has
+    moved by more than tol_F (farads) from its last extreme. With tol_F = 2 sigma a ripple
+    the data could not see (inside their noise) is not a turn; a swing larger than that is."""
     C = np.asarray(C_on_grid, dtype=float)
-    d = np.diff(C)
-    tol = rel_tol * float(np.max(np.abs(C)) or 1.0)
-    s = np.sign(d[np.abs(d) > tol])
-    return int(np.sum(s[1:] != s[:-1])) if s.size > 1 else 0
+    tol = max(float(tol_F), rel_tol * float(np.max(np.abs(C)) or 1.0))
+    return _zigzag(C, np.full(C.size, tol))
+
+
+def _zigzag(values, tol) -> int:
+    """Direction changes of a sequence, a move counting once it exceeds tol from the last
+    extreme (tol per element: the larger of the two elements' tolerances applies)."""
+    count, direction = 0, 0
+    ext = 0  # index of the last extreme
+    for j in range(1, values.size):
+        step = values[j] - values[ext]
+        if direction >= 0 and values[j] >= values[ext]:
+            if direction == 0 and step > max(tol[j], tol[ext]):
+                direction = 1
+            if direction == 1:
+                ext = j
+                continue
+        if direction <= 0 and values[j] <= values[ext]:
+            if direction == 0 and -step > max(tol[j], tol[ext]):
+                direction = -1
+            if direction == -1:
+                ext = j
+                continue
+        if direction != 0 and abs(step) > max(tol[j], tol[ext]):
+            count += 1
+            direction = -direction
+            ext = j
+    return count
 
 
 def data_turns(bias_V, C_F, sigma_F) -> int:
-    """Turns the data themselves show: walking up in bias from one reading to the next one
-    that differs from it by more than twice their combined standard deviation, the number of
-    times the direction of those significant steps changes. Without sigma every step counts
-    (nothing lets a turn be called noise)."""
+    """Turns the data themselves show: the means at each bias, walked up in bias, change
+    direction after moving more than twice their standard deviation from the last extreme.
+    Without sigma every change counts (nothing lets a turn be called noise)."""
     V = np.asarray(bias_V, dtype=float)
     C = np.asarray(C_F, dtype=float)
     distinct, inv = np.unique(V, return_inverse=True)
@@ -116,12 +141,4 @@ def data_turns(bias_V, C_F, sigma_F) -> int:
         u = np.zeros_like(means)
     else:
         u = np.sqrt(np.bincount(inv, weights=np.asarray(sigma_F, dtype=float) ** 2)) / counts
-    signs = []
-    ref = 0
-    for j in range(1, means.size):
-        step = means[j] - means[ref]
-        if abs(step) > 2.0 * np.hypot(u[j], u[ref]):
-            signs.append(np.sign(step))
-            ref = j
-    s = np.array(signs)
-    return int(np.sum(s[1:] != s[:-1])) if s.size > 1 else 0
+    return _zigzag(means, 2.0 * u)
