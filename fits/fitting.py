@@ -133,8 +133,17 @@ class FitOutcome:
     report: str
     data: SweepData
     fit: VariantFit | None
-    candidates: dict[str, Curve] = field(default_factory=dict)
+    candidate_fits: dict[str, VariantFit] = field(default_factory=dict)
     skipped: dict[str, str] = field(default_factory=dict)
+    meta: dict = field(default_factory=dict)
+
+    @property
+    def candidates(self) -> dict[str, Curve]:
+        """The curve of every family fitted (built on demand: most callers need only one)."""
+        out = {}
+        for n, f in self.candidate_fits.items():
+            out[n] = self.curve if f is self.fit else _curve_from(f, self.data, self.meta)
+        return out
 
     @property
     def residuals_F(self) -> np.ndarray:
@@ -208,10 +217,10 @@ def fit_sweep(bias_V, C_F, sigma_F=None, model="auto", branch: str | None = None
     ranking = [(n, fits_by_family[n].loo, fits_by_family[n].bic) for n in order]
     chosen = order[0]
     vf = fits_by_family[chosen]
-    _assess(vf, data)
-    curves = {n: _curve_from(f, data, meta) for n, f in fits_by_family.items()}
-    report = _report(branch, data, vf, curves[chosen], table, skipped, auto=len(families) > 1)
-    return FitOutcome(curves[chosen], ranking, report, data, vf, curves, skipped)
+    _finalise(vf, data)
+    curve = _curve_from(vf, data, meta)
+    report = _report(branch, data, vf, curve, table, skipped, auto=len(families) > 1)
+    return FitOutcome(curve, ranking, report, data, vf, fits_by_family, skipped, meta)
 
 
 def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shape: bool = True,
@@ -286,10 +295,13 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
         rankings[b] = ranking
         chosen = order[0]
         vf = results[chosen][b]
-        curves = {n: _curve_from(r[b], datas[b], dict(meta, branch=b)) for n, r in results.items()}
-        report = _report(b, datas[b], vf, curves[chosen], table, skipped,
+        _finalise(vf, datas[b])
+        bmeta = dict(meta, branch=b)
+        curve = _curve_from(vf, datas[b], bmeta)
+        report = _report(b, datas[b], vf, curve, table, skipped,
                          auto=len(families) > 1, notes=notes)
-        outcomes[b] = FitOutcome(curves[chosen], ranking, report, datas[b], vf, curves, skipped)
+        outcomes[b] = FitOutcome(curve, ranking, report, datas[b], vf,
+                                 {n: r[b] for n, r in results.items()}, skipped, bmeta)
     ranking = rankings["rising"]
     report = "\n\n".join(o.report for o in outcomes.values())
     return BranchOutcome(outcomes, ranking, report)
@@ -363,13 +375,17 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
     allowed = None
     start = None if getattr(spec, "linear", False) else spec.guess(
         data.bias_V, data.C_F / float(np.max(data.C_F)))
+    chained = False
     for variant in variants:
+        if fits and _same_as_previous(variant, fits[-1]):
+            continue  # the previous fit already ended with these parameters held there
         try:
-            vf = _fit_variant(variant, data, start)
+            vf = _fit_variant(variant, data, start, chained)
             if start is not None and vf.spec is spec:
                 # the next, freer variant starts where this one ended (scaled space)
                 Cs = float(np.max(data.C_F))
                 start = {n: _scaled(n, v, Cs) for n, v in vf.params.items()}
+                chained = True
         except _CannotFit as exc:
             reasons.append(str(exc))
             continue
@@ -394,6 +410,22 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
                        {i: (True, f.k, len(f.held), f.quality["describes_data"])
                         for i, f in by.items()})
     return by[order[0]]
+
+
+def _same_as_previous(variant: Variant, prev: VariantFit) -> bool:
+    """True when the previous (freer) fit of the family ended with every parameter this
+    variant fixes either fixed too or held on a bound at the same value: same fit again."""
+    if prev.spec is not variant.spec:
+        return False
+    prev_fixed = set(prev.spec.param_names) - set(prev.free_names) - set(prev.held)
+    if not prev_fixed <= set(variant.fixed):
+        return False  # this variant is freer than the previous one
+    for n, v in variant.fixed.items():
+        if n in prev.free_names:
+            return False
+        if n in prev.held and abs(prev.params[n] - float(v)) > 0.0:
+            return False
+    return True
 
 
 def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
@@ -476,9 +508,10 @@ def _bounds(spec: ModelSpec, V, y):
     return lo, hi
 
 
-def _fit_variant(variant: Variant, data: SweepData, start: Mapping | None = None) -> VariantFit:
+def _fit_variant(variant: Variant, data: SweepData, start: Mapping | None = None,
+                 chained: bool = False) -> VariantFit:
     """One variant; `start` = starting values in the scaled space (C / max C), else the
-    model's guess."""
+    model's guess; chained = start is the optimum of the previous variant of the family."""
     spec = variant.spec
     free = list(variant.free_names)
     _require_points(data, len(free), variant.label)
@@ -506,7 +539,7 @@ def _fit_variant(variant: Variant, data: SweepData, start: Mapping | None = None
 
     try:
         sol = solve(resid, jac, x0, lo, hi, fixed=fixed_idx, max_nfev=_MAX_NFEV, xtol=_TOL,
-                    ftol=_TOL)
+                    ftol=_TOL, hold_outward=chained)
     except SolveError as exc:
         raise _CannotFit(f"{variant.label}: the fit failed ({exc})") from None
     if not sol.converged:
@@ -585,6 +618,17 @@ def _assess(vf: VariantFit, data: SweepData) -> None:
     q = quality.assess(data.bias_V, data.C_F - vf.C_model_F, data.sigma_F, int(round(dof)))
     q["flat"] = _is_flat(vf)
     vf.quality = q
+
+
+def _finalise(vf: VariantFit, data: SweepData) -> None:
+    """The chosen fit: its lack-of-fit tests and, when its law does not describe the data,
+    the model-error term of its band."""
+    _assess(vf, data)
+    if not vf.quality["describes_data"] and "model_error_F" not in vf.quality:
+        dof = data.n - (vf.k * data.n / vf.n if vf.joint else vf.k)
+        vf.quality["model_error_F"] = quality.model_error(data.C_F - vf.C_model_F,
+                                                          data.sigma_F, int(round(dof)))
+    vf.quality.setdefault("model_error_F", 0.0)
 
 
 # ---------------------------------------------------------------------------------------
@@ -724,7 +768,7 @@ def _table_outcome(spec: ModelSpec, data: SweepData, meta: dict) -> FitOutcome:
     curve = _curve_from(vf, data, meta)
     ranking = [("table", float("nan"), float("nan"))]
     report = _report(meta.get("branch"), data, vf, curve, ranking, {}, auto=False, notes=notes)
-    return FitOutcome(curve, ranking, report, data, vf, {"table": curve}, {})
+    return FitOutcome(curve, ranking, report, data, vf, {"table": vf}, {}, meta)
 
 
 # ---------------------------------------------------------------------------------------

@@ -60,11 +60,14 @@ def _on_bound(x, lo, hi):
 
 def solve(resid: Callable[[np.ndarray], np.ndarray], jac: Callable[[np.ndarray], np.ndarray] | None,
           x0: Sequence[float], lower=None, upper=None, *, fixed: Sequence[int] = (),
-          max_nfev: int = 2000, xtol: float = XTOL, ftol: float = FTOL) -> Solution:
+          max_nfev: int = 2000, xtol: float = XTOL, ftol: float = FTOL,
+          hold_outward: bool = False) -> Solution:
     """Minimise sum(resid(x)**2) from x0, holding `fixed` indices and respecting bounds.
 
     resid(x) -> residual vector for the full parameter vector x; jac(x) -> d resid / d x of
     shape (n_residuals, len(x)), or None for MINPACK's forward differences.
+    hold_outward: x0 is the optimum of a more constrained problem (a simpler variant); a
+    parameter on a bound there whose gradient points outwards is held from the start.
     """
     x = np.array(x0, dtype=float)
     k = x.size
@@ -74,16 +77,29 @@ def solve(resid: Callable[[np.ndarray], np.ndarray], jac: Callable[[np.ndarray],
     held: list[int] = []
     free = [i for i in range(k) if i not in set(fixed)]
     nfev_total = 0
+    if hold_outward and jac is not None:
+        # a parameter that starts on a bound with the gradient pushing it outwards (the
+        # Karush-Kuhn-Tucker sign) is held from the start: it would only run onto it again
+        low, high = _on_bound(x, lo, hi)
+        if np.any(low | high):
+            r0 = resid(x)
+            g = np.asarray(jac(x), dtype=float).T @ r0  # half the gradient of sum r^2
+            for i in list(free):
+                if (low[i] and g[i] > 0) or (high[i] and g[i] < 0):
+                    held.append(i)
+                    free.remove(i)
     while True:
         if not free:
             raise SolveError("every parameter ran onto a bound")
         idx = np.array(free)
         base = x.copy()
 
+        lo_i, hi_i = lo[idx], hi[idx]
+
         def full(p):
             y = base.copy()
-            y[idx] = p
-            return np.clip(y, lo, hi), (y >= lo) & (y <= hi)
+            y[idx] = np.minimum(np.maximum(p, lo_i), hi_i)
+            return y, (p >= lo_i) & (p <= hi_i)
 
         def f(p):
             r = resid(full(p)[0])
@@ -96,7 +112,8 @@ def solve(resid: Callable[[np.ndarray], np.ndarray], jac: Callable[[np.ndarray],
             def Df(p):
                 y, inside = full(p)
                 J = np.asarray(jac(y), dtype=float)[:, idx]
-                J = J * inside[idx][None, :]
+                if not inside.all():
+                    J = J * inside[None, :]
                 if not np.all(np.isfinite(J)):
                     raise SolveError("the jacobian is not finite at a trial step")
                 return J

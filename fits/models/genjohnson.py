@@ -99,10 +99,14 @@ class GenJohnsonModel(ModelSpec):
         A = C_pk - C_fl
         dg_du = -2.0 * m * u * g / (1.0 + u * u)
         d_Vk = -A * dg_du * u / Vk  # dC/dV_k at fixed m
-        d_m = -A * g * L  # dC/dm at fixed V_k
         # V_k = V_w*sqrt(m): dC/dV_w = dC/dV_k*sqrt(m); dC/dm|V_w = dC/dm|V_k + dC/dV_k*V_k/(2m)
-        return np.column_stack([g, 1.0 - g, d_Vk * np.sqrt(m), d_m + d_Vk * Vk / (2.0 * m),
-                                -A * dg_du / Vk])
+        out = np.empty((V.size, 5))
+        out[:, 0] = g
+        out[:, 1] = 1.0 - g
+        out[:, 2] = d_Vk * np.sqrt(m)
+        out[:, 3] = d_Vk * (Vk / (2.0 * m)) - A * g * L  # -A*g*L: dC/dm at fixed V_k
+        out[:, 4] = -A * dg_du / Vk
+        return out
 
     def spice_charge(self, params, v):
         self.check_params(params)
