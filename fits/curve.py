@@ -93,6 +93,13 @@ class Curve:
         outside = (test < lo - tol) | (test > hi + tol)
         if not outside.any():
             return V
+        other = self.unmeasured_polarity(test)
+        if other.any():
+            worst = float(test[other][np.argmax(np.abs(test[other]))])
+            raise OutOfRange(f"{what}: bias {worst:g} V is of the polarity this curve was not "
+                             f"measured at (it covers {lo:g} V to {hi:g} V): refused, even "
+                             "with extrapolate=True; a sweep of one polarity says nothing "
+                             "about the other")
         if extrapolate and self.model != "table":
             return V
         worst = float(test[outside][np.argmax(np.abs(test[outside] - (lo + hi) / 2))])
@@ -103,6 +110,29 @@ class Curve:
         raise OutOfRange(f"{what}{need}: bias {worst:g} V is outside the valid range "
                          f"{lo:g} V to {hi:g} V of curve {self.model}{' ' + who if who else ''} "
                          f"(the measured range); {hint}")
+
+    @property
+    def measured_polarity(self) -> str:
+        """"positive", "negative" or "both": the sign of the bias the curve was measured at."""
+        lo, hi = self.valid_range_V
+        tol = 1e-9 * max(1.0, abs(lo), abs(hi))
+        if lo >= -tol:
+            return "positive"
+        if hi <= tol:
+            return "negative"
+        return "both"
+
+    def unmeasured_polarity(self, V) -> np.ndarray:
+        """True where a bias has the sign the curve was never measured at."""
+        V = np.asarray(V, dtype=float)
+        lo, hi = self.valid_range_V
+        tol = 1e-9 * max(1.0, abs(lo), abs(hi))
+        pol = self.measured_polarity
+        if pol == "positive":
+            return V < -tol
+        if pol == "negative":
+            return V > tol
+        return np.zeros(V.shape, dtype=bool)
 
     # ---- capacitance, charge, energy -----------------------------------------------------
     def C(self, V, extrapolate: bool = False):

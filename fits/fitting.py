@@ -214,6 +214,8 @@ def fit_sweep(bias_V, C_F, sigma_F=None, model="auto", branch: str | None = None
     order, table = _choose({n: f.loo_scores for n, f in fits_by_family.items()},
                            {n: (f.compact, f.k, _is_flat(f), f.quality["describes_data"])
                             for n, f in fits_by_family.items()})
+    if len(families) > 1 and "poly" in fits_by_family:
+        order, table = _flat_first(fits_by_family, data, order, table)
     ranking = [(n, fits_by_family[n].loo, fits_by_family[n].bic) for n in order]
     chosen = order[0]
     vf = fits_by_family[chosen]
@@ -288,6 +290,10 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
             scores[name] = vf.loo_scores
             keys[name] = (vf.compact, k, _is_flat(vf), vf.quality["describes_data"])
         order, table = _choose(scores, keys)
+        if len(families) > 1 and "poly" in results:
+            per_b = {n: r[b] for n, r in results.items()}
+            order, table = _flat_first(per_b, datas[b], order, table)
+            results["poly"][b] = per_b["poly"]
         ranking = []
         for name in order:
             aic, bic = _combined_criteria(results[name], datas)
@@ -410,6 +416,31 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
                        {i: (True, f.k, len(f.held), f.quality["describes_data"])
                         for i, f in by.items()})
     return by[order[0]]
+
+
+#: a weighted sweep is flat within noise when the flat line passes both lack-of-fit tests at
+#: this level (stricter than the 0.001 that calls a law a misfit: "flat" is a claim)
+_P_FLAT = 0.05
+
+
+def _flat_first(fits_by_family: dict, data: SweepData, order, table):
+    """When sigma is known and the flat line describes the data (chi-square and runs both
+    at p >= _P_FLAT), the part is flat within noise: the flat line replaces the polynomial's
+    candidate and goes first, whatever a law bent by the noise scored."""
+    if data.sigma_F is None or data.n_distinct < 3:
+        return order, table
+    Vs = float(np.max(np.abs(data.bias_V))) or 1.0
+    flat = _fit_linear(Variant(models.get("poly", powers=[0]), {"V_scale_V": Vs},
+                               "poly degree 0 (flat)"), data)
+    q = quality.assess(data.bias_V, data.C_F - flat.C_model_F, data.sigma_F, flat.dof)
+    if not (q["chi2_p"] is not None and q["chi2_p"] >= _P_FLAT and q["runs_p"] >= _P_FLAT):
+        return order, table
+    _assess(flat, data)
+    fits_by_family["poly"] = flat
+    order = ["poly"] + [n for n in order if n != "poly"]
+    row = {"name": "poly", "loo": flat.loo, "d_loo": float("nan"), "se": float("nan"),
+           "as_good": True, "compact": True, "k": 1}
+    return order, [row] + [r for r in table if r["name"] != "poly"]
 
 
 def _same_as_previous(variant: Variant, prev: VariantFit) -> bool:
@@ -789,8 +820,11 @@ def _curve_from(vf: VariantFit, data: SweepData, meta: Mapping) -> Curve:
         stats["loo_rms"] = rms
     model_error = 0.0
     if vf.quality:
+        from fits.report import verdict
+
         stats.update(vf.quality)
         model_error = float(vf.quality.get("model_error_F") or 0.0)
+        stats["verdict"] = verdict(stats)
     if vf.held:
         stats["held_at_bound"] = list(vf.held)
     source = dict(meta.get("source") or {})

@@ -18,7 +18,6 @@ Everything is fitted and rendered in memory first; nothing is written if any sam
 
 from __future__ import annotations
 
-import math
 import re
 from pathlib import Path
 
@@ -26,7 +25,7 @@ from benchkit.sweep import runlog
 from benchkit.atomic import write_bytes_atomic, write_text_atomic
 from benchkit.errors import UserError
 
-MODELS = ("auto", "tanh", "poly", "landau", "table")
+MODELS = ("auto", "tanh", "genjohnson", "poly", "landau", "table")
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")
 
 
@@ -34,16 +33,20 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "fit",
         help="fit C(V) models to a measured run and write curve documents",
-        description="Fit a compact C(V) model (tanh-type, polynomial, Landau-type, or a PCHIP "
-                    "table) to each sample and sweep branch of a run directory, with parameter "
-                    "uncertainties, and write one curve document (JSON) per sample and branch.",
+        description="Fit a compact C(V) model (tanh-type, generalised Johnson, Landau-type, "
+                    "polynomial, or a PCHIP table) to each sample and sweep branch of a run "
+                    "directory, with parameter uncertainties, and write one curve document "
+                    "(JSON) per sample and branch. Each line says whether the fitted law "
+                    "describes the data, or that the part is flat within noise.",
         epilog="With one sample --out names the curve file of the rising branch (the falling "
                "branch goes to <stem>-falling.json); with several samples --out is a directory "
-               "of <sample_id>-<branch>.json files. 'auto' ranks tanh, poly and landau by BIC.",
+               "of <sample_id>-<branch>.json files. 'auto' chooses by leave-one-out prediction "
+               "error, preferring a compact law when it is as good.",
     )
     p.add_argument("run_dir", metavar="RUN_DIR", help="run directory written by 'benchkit measure'")
     p.add_argument("--model", choices=MODELS, default="auto",
-                   help="model to fit (default: auto = lowest BIC of tanh, poly, landau)")
+                   help="model to fit (default: auto = best leave-one-out prediction, compact "
+                        "law preferred when as good)")
     p.add_argument("--sample", metavar="ID", help="fit only this sample")
     p.add_argument("--out", required=True, metavar="CURVE.json|DIR",
                    help="curve file (one sample) or directory (several samples)")
@@ -84,6 +87,7 @@ def _out_paths(out_arg: str, sample_ids: list[str], branches: dict[str, list[str
 def run(args) -> int:
     import fits
     from fits import plots
+    from fits.report import verdict
 
     run_dir = Path(args.run_dir)
     if not run_dir.is_dir():
@@ -145,10 +149,17 @@ def run(args) -> int:
         o = outcomes[sid].outcomes[b]
         c, st = o.curve, o.curve.stats
         lo, hi = c.valid_range_V
-        ranking = ", ".join(f"{n} {bic:.1f}" for n, _, bic in o.ranking if math.isfinite(bic))
-        print(f"{sid} {b}: {c.model} ({st['variant']}), R^2 {st['r2']:.6f}, RMS "
-              f"{st['rms_pct_C0']:.3g} % of C0, {lo:g} V to {hi:g} V"
-              + (f"; BIC {ranking}" if len(o.ranking) > 1 else "") + f" -> {path}")
+        if c.model == "table":
+            quality = "table through the points"
+        elif st.get("flat"):
+            quality = f"flat within noise (max |residual| {st['max_resid_pct_C0']:.3g} % of C0)"
+        else:
+            quality = f"R^2 {st['r2']:.6f}, RMS {st['rms_pct_C0']:.3g} % of C0"
+        print(f"{sid} {b}: {c.model} ({st['variant']}), {quality}, {lo:g} V to {hi:g} V"
+              + (f"; chosen over {', '.join(n for n, *_ in o.ranking[1:])} by leave-one-out "
+                 "prediction" if len(o.ranking) > 1 else "") + f" -> {path}")
+        if c.model != "table" and not st.get("describes_data", True):
+            print(f"  {sid} {b}: {verdict(st)}")
         if args.report:
             print(o.report)
     for path in figures:

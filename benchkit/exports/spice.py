@@ -11,7 +11,11 @@ gives i = dQ/dt exactly [common practice; style notes on ngspice 39]. Q(V) is th
 integral of C with Q(0) = 0, never C(V)*V [common practice].
 
 The comment block states the conditions, the valid range (outside it the expression is the
-model carried on; do not rely on it there) and the source run. Written for ngspice; the
+model carried on; do not rely on it there) and the source run. A simulator needs a value at
+every bias, so for a curve measured at one polarity only the other polarity is MIRRORED,
+C(-V) = C(V) (the charge odd in V), and the header says so: the mirror is an assumption of
+the export (an anhysteretic ceramic's C(V) is even in V [common practice]), never presented
+as measured. The CSV table and the curve itself refuse the other polarity instead. Written for ngspice; the
 `Q={}` charge form is ngspice syntax.
 """
 
@@ -56,11 +60,17 @@ def spice_subcircuit(curve, *, name: str | None = None, esr_ohm: float | None = 
         if not (math.isfinite(esr_ohm) and esr_ohm > 0):
             raise UserError(f"--esr {esr_ohm!r}: must be a positive resistance in ohms (or leave it out)")
     v = "V(a,n1)" if esr_ohm is not None else "V(a,b)"
+    lo, hi = (float(x) for x in curve.valid_range_V)
+    polarity = curve.measured_polarity
     try:
         q = spec.spice_charge(params, v)
+        if polarity != "both":
+            # mirrored: C(-V) = C(V), the charge odd in V (Q(-V) = -Q(V))
+            q_mirror = spec.spice_charge(params, f"(-({v}))")
+            wrong = "<" if polarity == "positive" else ">"
+            q = f"((({v}) {wrong} 0) ? (-({q_mirror})) : ({q}))"
     except (NotImplementedError,) + fits_errors() as exc:
         raise UserError(f"curve model {curve.model!r}: no SPICE charge expression ({exc})") from None
-    lo, hi = (float(x) for x in curve.valid_range_V)
     cond = dict(curve.conditions or {})
     src = dict(curve.source or {})
     lines = [
@@ -74,6 +84,9 @@ def spice_subcircuit(curve, *, name: str | None = None, esr_ohm: float | None = 
         f"function {_comment(cond.get('function'))}",
         f"* valid range: {lo:g} V to {hi:g} V measured; outside it the expression carries the model on:",
         "*   do not rely on it there",
+        (f"* polarity: measured at {polarity} bias only; at {'negative' if polarity == 'positive' else 'positive'}"
+         " bias the charge is MIRRORED (C(-V) = C(V), an assumption, not a measurement)"
+         if polarity != "both" else "* polarity: measured at both polarities"),
         f"* C at {lo:g} V = {format_value(float(curve.C(lo)), 'F')}, "
         f"at {hi:g} V = {format_value(float(curve.C(hi)), 'F')}",
         f"* source run: {_comment(src.get('run_id'))}  points sha256 {_comment(src.get('points_sha256'))}",

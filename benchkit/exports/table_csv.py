@@ -39,6 +39,10 @@ def curve_csv(curve, bias_V=None, n_points: int = DEFAULT_POINTS) -> str:
     """The table text. `bias_V` (inside the valid range) overrides the even grid."""
     V = bias_grid(curve, n_points) if bias_V is None else np.asarray(bias_V, dtype=float).ravel()
     lo, hi = (float(x) for x in curve.valid_range_V)
+    other = V[curve.unmeasured_polarity(V)] if hasattr(curve, "unmeasured_polarity") else V[:0]
+    if other.size:
+        raise UserError(f"bias {other[0]:g} V: the curve was measured at {curve.measured_polarity} "
+                        f"bias only ({lo:g}..{hi:g} V); a table of the other polarity is refused")
     outside = V[(V < lo) | (V > hi)]
     if outside.size:
         raise UserError(f"bias {outside[0]:g} V is outside the curve's valid range {lo:g}..{hi:g} V; "

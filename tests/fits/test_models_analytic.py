@@ -18,6 +18,7 @@ from fits import Curve, models
 PARAMS = {
     "tanh": dict(C_inf_F=1.0e-6, C_pk_F=5.0e-6, V0_V=2.0, V_off_V=0.4),
     "landau": dict(C0_F=4.0e-6, V_k_V=1.5, C_p_F=0.3e-6),
+    "genjohnson": dict(C_pk_F=5.0e-6, C_fl_F=0.4e-6, V_w_V=1.8, m=0.8, V_pk_V=0.35),
     "poly": dict(V_scale_V=6.0, a0_F=5e-6, a1_F=-1e-6, a2_F=-2e-6, a3_F=0.5e-6),
     "table": dict(V0_V=-1.0, V1_V=0.0, V2_V=2.0, V3_V=5.0,
                   C0_F=3e-6, C1_F=5e-6, C2_F=3e-6, C3_F=1e-6),
@@ -144,3 +145,38 @@ def test_table_never_extrapolates_and_is_monotone():
 def test_landau_check_params_rejects_unphysical():
     with pytest.raises(ValueError, match="V_k_V"):
         models.get("landau").check_params(dict(C0_F=1.0, V_k_V=-1.0, C_p_F=0.0))
+
+
+def test_genjohnson_with_exponent_one_third_is_the_johnson_relation():
+    # K. M. Johnson, J. Appl. Phys. 33, 2826 (1962): C0/(1 + (V/V_k)^2)^(1/3); with m = 1/3,
+    # no floor and the peak at 0 V the generalised law is the Landau-type model exactly
+    # (V_w = V_k/sqrt(m) by its definition) [derived]
+    gj, la = models.get("genjohnson"), models.get("landau")
+    V = np.linspace(-7, 9, 33)
+    p = dict(C_pk_F=4e-6, C_fl_F=0.0, V_w_V=1.5 / np.sqrt(1 / 3), m=1 / 3, V_pk_V=0.0)
+    q = dict(C0_F=4e-6, V_k_V=1.5, C_p_F=0.0)
+    np.testing.assert_allclose(gj.C(V, **p), la.C(V, **q), rtol=1e-13)
+    np.testing.assert_allclose(gj.Q(V, **p), la.Q(V, **q), rtol=1e-12)
+    np.testing.assert_allclose(gj.W(V, **p), la.W(V, **q), rtol=1e-12)
+    # Johnson check value: C(V_k) = 2^(-1/3) C0 = 0.793701 C0 [derived, science notes]
+    assert float(gj.C(1.5, **p)) / 4e-6 == pytest.approx(0.793701, abs=5e-7)
+
+
+def test_genjohnson_rational_case_halves_at_the_knee():
+    # rational form C0/(1 + (V/Vh)^2): C(Vh) = C0/2 and Q = C0*Vh*arctan(V/Vh) [derived]
+    gj = models.get("genjohnson")
+    p = dict(C_pk_F=1.0, C_fl_F=0.0, V_w_V=2.0, m=1.0, V_pk_V=0.0)
+    assert float(gj.C(2.0, **p)) == pytest.approx(0.5, rel=1e-14)
+    for v in (0.3, 2.0, -5.0, 40.0):
+        assert float(gj.Q(v, **p)) == pytest.approx(2.0 * np.arctan(v / 2.0), rel=1e-12)
+
+
+@pytest.mark.parametrize("m", [0.25, 1.0, 1.7, 4.0])
+def test_genjohnson_energy_is_integral_of_v_times_C(m):
+    # W = int v*C(v) dv (Costinett et al. 2015), the closed form against scipy.integrate.quad
+    gj = models.get("genjohnson")
+    p = dict(C_pk_F=3e-6, C_fl_F=0.5e-6, V_w_V=1.3, m=m, V_pk_V=-0.4)
+    for v in (0.5, 3.0, -6.0, 25.0):
+        ref = quad(lambda x: x * float(gj.C(x, **p)), 0.0, v, epsabs=0, epsrel=1e-12,
+                   limit=200)[0]
+        assert float(gj.W(v, **p)) == pytest.approx(ref, rel=1e-9), (m, v)

@@ -20,6 +20,7 @@ needs_ngspice = pytest.mark.skipif(NGSPICE is None, reason="ngspice is not insta
 PARAMS = {
     "tanh": dict(C_inf_F=1.0e-6, C_pk_F=5.0e-6, V0_V=2.0, V_off_V=0.4),
     "landau": dict(C0_F=4.0e-6, V_k_V=1.5, C_p_F=0.3e-6),
+    "genjohnson": dict(C_pk_F=5.0e-6, C_fl_F=0.4e-6, V_w_V=1.8, m=0.8, V_pk_V=0.35),
     "poly": dict(V_scale_V=6.0, a0_F=5e-6, a1_F=-1e-6, a2_F=-2e-6, a3_F=0.5e-6),
     "table": dict(V0_V=-1.0, V1_V=0.0, V2_V=2.0, V3_V=5.0,
                   C0_F=3e-6, C1_F=5e-6, C2_F=3e-6, C3_F=1e-6),
@@ -46,7 +47,7 @@ def run_ngspice(deck: str, tmp_path, name: str) -> str:
     return proc.stdout
 
 
-@pytest.mark.parametrize("name", ["tanh", "landau", "poly"])
+@pytest.mark.parametrize("name", ["tanh", "landau", "genjohnson", "poly"])
 def test_python_evaluation_of_expression_equals_Q(name):
     spec, p = spec_of(name), PARAMS[name]
     expr = spec.spice_charge(p, "V(a)")
@@ -67,6 +68,21 @@ def test_landau_spice_quadrature_accuracy_against_quad():
         assert python_eval(expr, u) == pytest.approx(ref, rel=tol), u
         # and the exact hypergeometric charge (scipy.special.hyp2f1) used by Q()
         assert python_eval(expr, u) == pytest.approx(float(spec.Q(u, **p)), rel=tol), u
+
+
+@pytest.mark.parametrize("m, V_pk", [(0.2, 0.0), (1.0 / 3.0, 0.0), (1.0, 0.5), (2.5, -0.7),
+                                     (6.0, 0.3)])
+def test_genjohnson_spice_quadrature_accuracy_against_quad(m, V_pk):
+    # the 24-point Gauss-Legendre charge of the generalised Johnson law against
+    # scipy.integrate.quad of C itself (reference), and against the hypergeometric Q()
+    spec = models.get("genjohnson")
+    p = dict(C_pk_F=1.0, C_fl_F=0.1, V_w_V=1.0, m=m, V_pk_V=V_pk)
+    expr = spec.spice_charge(p, "V(a)")
+    for v in (0.01, 0.7, 3.0, -4.0, 12.0, -30.0):
+        ref = quad(lambda x: float(spec.C(x, **p)), 0.0, v, epsabs=0, epsrel=1e-13,
+                   limit=500)[0]
+        assert python_eval(expr, v) == pytest.approx(ref, rel=1e-9), (m, v)
+        assert float(spec.Q(v, **p)) == pytest.approx(ref, rel=1e-10), (m, v)
 
 
 @needs_ngspice
@@ -105,7 +121,7 @@ quit
 
 
 @needs_ngspice
-@pytest.mark.parametrize("name", ["tanh", "landau"])
+@pytest.mark.parametrize("name", ["tanh", "landau", "genjohnson"])
 def test_ngspice_capacitor_charge_is_conserved(name, tmp_path):
     # the expression as a charge-defined capacitor (C1 a 0 Q={...}) driven by a voltage ramp:
     # the integral of the source current equals -Q(V_end) (charge conservation); 7 printed

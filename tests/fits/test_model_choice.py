@@ -1,0 +1,127 @@
+"""Model choice by prediction, lack of fit that is never silent, flat parts, no wiggles,
+polarity, and fits on shapes none of the models is.
+
+Truths: the shape families of benchkit.benchmarks.independent_truths (invented for these
+checks, none of them a model of fits nor the simulated bench's law), the tanh and Landau-type
+laws for the "describes within noise" cases (Chen and Yu 2004; Johnson 1962), and a flat
+class-1 part (C0G: 0 +-30 ppm/K, no DC-bias dependence [common practice]).
+Runs test: A. Wald and J. Wolfowitz, Ann. Math. Stat. 11, 147 (1940); reference values from
+scipy.stats (normal distribution) below.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from benchkit.benchmarks import independent_truths as T
+from fits import Curve, OutOfRange, fit_branches, fit_sweep, models, quality
+
+GRID = np.linspace(0.0, T.TOP_V, 400)
+
+
+def test_runs_test_against_the_normal_approximation_formula():
+    # Wald-Wolfowitz: n1 = n2 = 10 -> mean runs 11, variance 4.737 (formula; reference
+    # values by scipy.stats.norm); 4 runs observed
+    signs = [1] * 5 + [-1] * 5 + [1] * 5 + [-1] * 5
+    runs, mu, p = quality.runs_test(np.array(signs, dtype=float))
+    var = 2 * 10 * 10 * (2 * 10 * 10 - 20) / (20**2 * 19)
+    assert (runs, mu) == (4, 11.0)
+    assert p == pytest.approx(stats.norm.cdf((4 - 11 + 0.5) / np.sqrt(var)), rel=1e-12)
+
+
+def test_model_error_makes_chi_square_meet_its_expectation():
+    rng = np.random.default_rng(3)
+    sigma = np.full(30, 1e-9)
+    r = rng.normal(size=30) * 3e-9  # three times the stated noise
+    s_m = quality.model_error(r, sigma, 28)
+    assert np.sum(r**2 / (sigma**2 + s_m**2)) == pytest.approx(28, rel=1e-6)
+
+
+def test_forced_tanh_on_a_shape_it_cannot_follow_says_so_and_its_band_covers_the_truth(tmp_path):
+    V, C, s, br = T.sweep("stretched-exp", 0)
+    m = br == "rising"
+    out = fit_sweep(V[m], C[m], s[m], model="tanh", branch="rising")
+    c = out.curve
+    assert c.stats["describes_data"] is False
+    assert "LACK OF FIT" in out.report and "model-error term" in out.report
+    assert c.model_error_F > 0
+    truth = T.truth("stretched-exp", GRID, "rising")
+    assert np.mean(np.abs(c.C(GRID) - truth) <= 2 * c.u_C(GRID)) >= 0.9
+    # the curve document says it too, and keeps the model error through a save/load
+    c.save(tmp_path / "c.json")
+    doc = json.loads((tmp_path / "c.json").read_text())
+    assert doc["stats"]["describes_data"] is False and "LACK OF FIT" in doc["stats"]["verdict"]
+    back = Curve.load(tmp_path / "c.json")
+    assert back.model_error_F == c.model_error_F
+    np.testing.assert_allclose(back.u_C(GRID), c.u_C(GRID), rtol=1e-12)
+
+
+@pytest.mark.parametrize("name, truth", [
+    ("tanh", dict(C_inf_F=1e-6, C_pk_F=10e-6, V0_V=6.0, V_off_V=0.0)),
+    ("landau", dict(C0_F=4.7e-6, V_k_V=3.0, C_p_F=0.0)),
+])
+def test_auto_picks_a_compact_law_on_sweeps_one_describes_within_noise(name, truth):
+    # 11 points per branch at 0.3 % noise, as the sparse sweeps of the issue
+    V = np.linspace(0, 25, 11)
+    C_true = models.get(name).C(V, **truth)
+    for seed in range(5):
+        rng = np.random.default_rng(seed)
+        sigma = 0.003 * C_true
+        out = fit_sweep(V, C_true + rng.normal(size=V.size) * sigma, sigma)
+        assert out.curve.spec.compact, (seed, out.curve.stats["variant"])
+        assert out.curve.stats["describes_data"]
+        # and its k = 2 band covers the generating law
+        err = np.abs(out.curve.C(GRID) - models.get(name).C(GRID, **truth))
+        assert np.mean(err <= 2 * out.curve.u_C(GRID)) >= 0.9, seed
+
+
+def test_a_part_flat_within_noise_is_reported_flat():
+    # C0G: no DC-bias dependence [common practice]; 0.3 % noise on 100 nF
+    rng = np.random.default_rng(8)
+    V = np.linspace(0, 50, 11)
+    C = 100e-9 * (1 + 0.003 * rng.normal(size=V.size))
+    out = fit_sweep(V, C, 0.003 * 100e-9 * np.ones(V.size))
+    assert out.curve.stats["flat"] and out.curve.stats["describes_data"]
+    assert "flat within noise" in out.report
+    assert out.curve.stats["variant"] == "poly degree 0 (flat)"
+    # a real fall of 3 % over the range is not called flat
+    out = fit_sweep(V, C * (1 - 0.03 * V / 50), 0.003 * 100e-9 * np.ones(V.size))
+    assert not out.curve.stats["flat"]
+
+
+def test_no_polynomial_wiggles_between_the_points():
+    # every auto fit of the independent truths: the curve on a fine grid turns no more often
+    # than the truth does by more than the noise (the truths fall monotonically on 0..top
+    # except the rising branch's peak near 0 V, less than one step wide)
+    for fam in T.FAMILIES:
+        for seed in range(2):
+            V, C, s, br = T.sweep(fam, seed)
+            out = fit_branches(V, C, br, s)
+            for b, o in out.outcomes.items():
+                curve = o.curve.C(GRID)
+                assert quality.turns(curve, 2 * 0.003 * float(curve.max())) <= 1, (fam, b)
+
+
+def test_positive_only_curve_refuses_negative_bias_even_when_extrapolating():
+    V = np.linspace(0, 12, 13)
+    c = fit_sweep(V, 1e-6 / (1 + (V / 5) ** 2)).curve
+    assert c.measured_polarity == "positive"
+    with pytest.raises(OutOfRange, match="polarity"):
+        c.C(-12.0, extrapolate=True)
+    with pytest.raises(OutOfRange, match="polarity"):
+        c.u_C(-0.5, extrapolate=True)
+    assert np.isfinite(c.C(13.0, extrapolate=True))  # same polarity: told to, it extrapolates
+
+
+@pytest.mark.xfail(strict=True, reason="not met yet: on 11-point branches at 0.3 % noise the "
+                   "auto fits of these four shape families reach 0.5-2 % of C0 and the band "
+                   "misses parts of the truth (numbers in `make bench`, independent_truths)")
+def test_independent_truths_within_half_a_percent_and_covered():
+    rows = T.run_cases(range(3))
+    for r in rows:
+        assert r["max_err_pct_C0"] <= 0.5, r
+        assert r["coverage"] >= 0.9, r
