@@ -33,7 +33,7 @@ def test_one_sample_writes_rising_primary_and_falling_beside(make_run, tmp_path,
     rising = Curve.load(out)
     falling = Curve.load(out.with_name("curve-falling.json"))
     assert rising.branch == "rising" and falling.branch == "falling"
-    assert rising.model == "tanh"  # auto, lowest BIC, on tanh-generated data
+    assert rising.model == "tanh"  # auto, best leave-one-out prediction, on tanh-generated data
     # truth of the synthetic sample (conftest): C_inf 1 uF, C_pk 10 uF, V0 2 V, V_off +-0.3 V
     assert rising.params["V0_V"] == pytest.approx(2.0, rel=0.02)
     assert rising.params["V_off_V"] == pytest.approx(0.3, abs=0.05)
@@ -132,3 +132,29 @@ def test_report_and_json_readable_by_library_style_reader(make_run, tmp_path, ca
     doc = json.loads((tmp_path / "c.json").read_text())
     assert doc["format"] == "benchkit-curve" and doc["branch"] == "rising"
     assert np.isfinite(doc["stats"]["bic"])
+
+
+def test_lack_of_fit_and_flat_parts_are_said_on_the_terminal(make_run, tmp_path, capsys):
+    # tanh forced on a stretched-exponential fall it cannot follow (invented truth of
+    # benchkit.benchmarks.independent_truths), and a flat C0G-like part (no bias
+    # dependence [common practice]) fitted auto: the terminal says which is which
+    from benchkit.benchmarks import independent_truths as T
+
+    V, C, s, br = T.sweep("stretched-exp", 1)
+    pts = [{"sample_id": "FX-01", "branch": b, "bias_set_V": v, "C_F": c,
+            "C_std_F": repr(float(x * np.sqrt(5))), "n_readings": 5}
+           for v, c, x, b in zip(V, C, s, br)]
+    run = make_run(pts)
+    code, stdout, err = run_cli(capsys, run, "--model", "tanh", "--out", tmp_path / "t.json")
+    assert code == 0, err
+    assert "LACK OF FIT: the model does not describe the data" in stdout
+    doc = json.loads((tmp_path / "t.json").read_text())
+    assert doc["stats"]["describes_data"] is False and doc["model_error_F"] > 0
+    rng = np.random.default_rng(4)
+    flat = [{"sample_id": "FX-02", "branch": "rising", "bias_set_V": v,
+             "C_F": 100e-9 * (1 + 0.002 * rng.normal()), "C_std_F": repr(float(0.002 * 100e-9 * np.sqrt(5))),
+             "n_readings": 5} for v in np.linspace(0, 50, 11)]
+    run = make_run(flat, name="flat")
+    code, stdout, err = run_cli(capsys, run, "--out", tmp_path / "f.json")
+    assert code == 0, err
+    assert "flat within noise" in stdout and "R^2" not in stdout
