@@ -578,6 +578,10 @@ def _fit_variant(variant: Variant, data: SweepData, start: Mapping | None = None
     held = [names[j] for j in sol.held]
     free = [n for n in free if n not in held]
     values = {n: float(v) * (Cs if is_capacitance_param(n) else 1.0) for n, v in zip(names, sol.x)}
+    try:
+        spec.check_params(values)  # e.g. a peak capacitance that ran onto 0
+    except ValueError as exc:
+        raise _CannotFit(f"{variant.label}: the fit ended on an unphysical value ({exc})") from None
     J = spec.jacobian(V, values)
     free_idx = [names.index(n) for n in free]
     return _finish(variant.label, spec, values, J[:, free_idx], free_idx, tuple(free),

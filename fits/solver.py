@@ -92,12 +92,12 @@ def solve(resid: Callable[[np.ndarray], np.ndarray], jac: Callable[[np.ndarray],
         if not free:
             raise SolveError("every parameter ran onto a bound")
         idx = np.array(free)
-        base = x.copy()
+        base = np.array(x)
 
         lo_i, hi_i = lo[idx], hi[idx]
 
         def full(p):
-            y = base.copy()
+            y = np.array(base)
             y[idx] = np.minimum(np.maximum(p, lo_i), hi_i)
             return y, (p >= lo_i) & (p <= hi_i)
 

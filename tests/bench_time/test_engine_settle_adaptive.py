@@ -124,7 +124,10 @@ def test_adaptive_passes_are_monotonic_loops_that_turn_at_the_top(adaptive_run):
 
 
 def test_adaptive_run_resumes_the_pass_it_was_in(tmp_path):
-    p = plan(FX05, {"points_V": [0.0, 10.0]}, adaptive=dict(ADAPTIVE))
+    # a target of 0.2 % makes pass 2 long enough (8 points) to be interrupted inside it; at
+    # 0.5 % the leave-one-out choice of the fits meets the target after one extra point
+    p = plan(FX05, {"points_V": [0.0, 10.0]},
+             adaptive=dict(ADAPTIVE, target_band_pct_of_C0=0.2))
     clock = VirtualClock()
     with demo_bench(clock=clock) as bench:
         res = run_sweep(bench, p, tmp_path / "run", clock, CtrlCAfter(15), parts=PARTS)
