@@ -119,6 +119,15 @@ def run(args) -> int:
         except fits.FitsError as exc:
             raise UserError(f"{points_path}: sample {sid}: {exc}") from None
 
+    from benchkit.sweep.impedance import wideband_model
+
+    all_rows, _ = runlog.read_points(run_dir)
+    for sid, o in outcomes.items():  # Z(f) per bias, when the plan had a frequency list
+        wb = wideband_model(all_rows, sid, {"freq_list": (meta.get("frequency_list") or {}).get("freq_Hz")},
+                            str(points_path))
+        if wb is not None:
+            primary = "rising" if "rising" in o.outcomes else next(iter(o.outcomes))
+            o.outcomes[primary].curve.wideband = wb
     sample_ids = sorted(outcomes)
     paths = _out_paths(args.out, sample_ids,
                        {sid: list(o.outcomes) for sid, o in outcomes.items()})

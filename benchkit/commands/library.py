@@ -111,6 +111,18 @@ def register(subparsers) -> None:
     sp.add_argument("--touchstone-version", choices=("1", "2"), default="1")
     sp.set_defaults(func=run, action=_export)
 
+    sp = add("impedance", "a part's impedance against frequency at a bias: ESR, |Z|, self-resonance; "
+                          "--plot draws |Z| and ESR against frequency for several biases")
+    sp.add_argument("part_id", metavar="ID")
+    sp.add_argument("--bias", type=arg_type("V", "--bias"), metavar="VOLTS", required=True)
+    sp.add_argument("--freq", type=arg_type("Hz", "--freq"), metavar="HZ",
+                    help="also |Z|, phase, ESR and C at this frequency (e.g. 100k, 1M)")
+    sp.add_argument("--plot", metavar="FILE.png", help="plot |Z| and ESR against frequency")
+    sp.add_argument("--plot-biases", metavar="V,V,...",
+                    help="biases of the plot (default: every fitted bias)")
+    sp.add_argument("--json", action="store_true", help="print the answer as JSON")
+    sp.set_defaults(func=run, action=_impedance)
+
     sp = add("import", "merge another library file into this one (what is here already is not added again)")
     sp.add_argument("other", metavar="OTHER.sqlite")
     sp.set_defaults(func=run, action=_import)
@@ -331,6 +343,36 @@ def _export(args) -> int:
         for (rec, target), text in zip(jobs, texts):
             write_text_atomic(target, text)
             print(f"curve {rec.curve_id} -> {target}")
+    return 0
+
+
+def _impedance(args) -> int:
+    from benchkit.library.impedance import answer, plot_impedance, wideband_record
+    from benchkit.units import parse_value
+
+    with _open(args, create=False) as lib:
+        part = lib.part(args.part_id)
+        rec = wideband_record(lib.curves(part.part_id))
+    a = answer(rec.curve, args.bias, args.freq)
+    if args.json:
+        print(json.dumps(a, indent=2))
+    else:
+        print(f"part {part.part_id} curve {rec.curve_id} at {a['bias_V']:g} V"
+              + (" (interpolated between fitted biases)" if a["interpolated"] else ""))
+        print(f"  self-resonant frequency {format_value(a['srf_Hz'], 'Hz')} "
+              f"(u {format_value(a['u_srf_Hz'], 'Hz')})")
+        print(f"  ESL {format_value(a['esl_H'], 'H')}, ESR floor {format_value(a['esr_floor_ohm'], 'ohm')}")
+        if args.freq is not None:
+            print(f"  at {format_value(a['freq_Hz'], 'Hz')}: |Z| {format_value(a['Z_abs_ohm'], 'ohm')} "
+                  f"(u {format_value(a['u_Z_abs_ohm'], 'ohm')}), phase {a['theta_deg']:.2f} deg, "
+                  f"ESR {format_value(a['esr_ohm'], 'ohm')} (u {format_value(a['u_esr_ohm'], 'ohm')})")
+    if args.plot:
+        if args.plot_biases:
+            biases = [parse_value(x.strip(), "V", "--plot-biases") for x in args.plot_biases.split(",")]
+        else:
+            biases = rec.curve.wideband.biases_V
+        target = plot_impedance(rec.curve, biases, args.plot, title=f"{part.part_id}: Z(f) at each bias")
+        print(f"plot -> {target}")
     return 0
 
 

@@ -79,6 +79,17 @@ def parts_in_run(run_dir: Path) -> list[str]:
     return sorted({r["part_id"] for r in rows if r["part_id"]})
 
 
+def _attach_wideband(curves: dict, run_dir: Path, sample_id: str, where: str) -> None:
+    """Z(f) per bias (a plan with a frequency list) rides on the sample's primary curve."""
+    from benchkit.sweep.impedance import wideband_model
+
+    rows, _ = runlog.read_points(Path(run_dir))
+    wb = wideband_model(rows, sample_id, None, where)
+    if wb is not None and curves:
+        primary = "rising" if "rising" in curves else next(iter(curves))
+        curves[primary].wideband = wb
+
+
 def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str = "auto",
                 allow_incomplete: bool = False) -> AddRunSummary:
     meta = runlog.read_run(run_dir)
@@ -115,6 +126,7 @@ def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str 
                 part_id=part_id, sample_id=sample_id)
         except fitsbridge.fits_errors() as exc:
             raise UserError(f"{points_path}: sample {sample_id}: {exc}") from None
+        _attach_wideband(outcome.curves, run_dir, sample_id, str(points_path))
         for branch, curve in outcome.curves.items():
             brows = smp.select(branch).rows
             summary.curves.append(FittedCurve(sample_id, branch, curve, esr_estimate(brows), len(brows)))

@@ -13,6 +13,7 @@ output off are in run.py.
 from __future__ import annotations
 
 from benchkit.sweep.dwell import dwell_policy
+from benchkit.sweep.frequency import FrequencyList, is_frequency_row
 from benchkit.sweep.passes import AdaptivePasses
 from benchkit.sweep.plan import Plan, PlannedPoint, SampleSweep
 from benchkit.sweep.point import PointMeasurement
@@ -21,11 +22,12 @@ from benchkit.sweep.runlog import RunLog, join_flags
 from benchkit.sweep.safety import Guarded, GuardedClock, SignalGuard
 
 
-class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
+class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, FrequencyList):
     """The loop over samples and points; each point, pass and recovery by its own module."""
 
     def __init__(self, inst, sweeps, plan: Plan, log: RunLog, clock, progress, guard, done_rows):
         self.plan, self.sweeps, self.log, self.progress, self.guard = plan, sweeps, log, progress, guard
+        done_rows = [r for r in done_rows if not is_frequency_row(r)]  # a point's list rides with it
         self.clock = clock
         self.gclock = GuardedClock(clock, guard) if isinstance(guard, SignalGuard) else clock
         wrap = (lambda x: Guarded(x, guard)) if isinstance(guard, SignalGuard) else (lambda x: x)
@@ -75,6 +77,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         s.output_on = False
         s.voltage_V = 0.0
         s.current_limit_A = self.plan.current_limit_A
+        if self.plan.frequency is not None:
+            self._frequency_setup(self.log.dir, self.resumed)  # open/short residuals at 0 V, output off
         first_in_session = True
         for sw in self.sweeps:
             # the planned points are made one at a time (PlannedPoints): constant memory per point
@@ -111,6 +115,7 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         if sw.adaptive is not None:
             self._lead_in(sw, p)
         row = self._measure_point(sw, p, resumed=resumed)
+        extra = self._frequency_rows(sw, p, row)
         # an error the meter or thermometer raised while this point was read stops the run
         # before the point is written (SCPI SYSTem:ERRor?), so no row follows an error unflagged
         for drv in (self.meter, self.thermo):
@@ -122,8 +127,10 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         elif row["temp_C"] is not None and \
                 abs(row["temp_C"] - self._ref_temp) > self.plan.limits["temp_tolerance_C"]:
             row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
-        with self.guard.transaction():  # a row is written whole or not at all
+        with self.guard.transaction():  # a row (with its frequency list) is written whole or not at all
             self.log.append_point(row)
+            for r in extra:
+                self.log.append_point(r)
         if sw.adaptive is not None:  # its planner needs the rows; other samples' stay on disk
             self._measured.setdefault(p.sample_id, []).append(row)
         self.done += 1

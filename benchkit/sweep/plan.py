@@ -28,6 +28,8 @@ Layout (every field in SI units; see data/plans/demo.toml):
     [adaptive]                       # optional: adaptive bias steps (benchkit/sweep/adaptive.py)
     target_band_pct_of_C0 = 0.5; max_points = 40; coarse_points = 7
     coverage_k = 2.0; resolution_V = 0.05; model = "auto"
+    [frequency]                      # optional: Z(f) at every bias point (benchkit/sweep/frequency.py)
+    start_Hz = 100.0; stop_Hz = 10e6; points_per_decade = 5   # or list_Hz = [...]
     [limits]
     current_limit_A = 0.01; max_ramp_V_per_s = 2.0
     discharge_wait_s = 5.0           # or discharge_R_ohm: then R*C*ln(V0/V_safe)
@@ -56,7 +58,7 @@ BRANCHES = ("rising", "falling")
 POLARITIES = ("positive", "negative", "both")
 FUNCTIONS = ("CPD", "CSD", "CSRS")
 DWELL_POLICIES = ("fixed", "settle")  # "settle": benchkit/sweep/settle.py, needs a [settle] table
-METER_FREQ_RANGE_HZ = (20.0, 2e6)  # generic command set, instruments/COMMANDS.md
+METER_FREQ_RANGE_HZ = (20.0, 10e6)  # generic command set, instruments/COMMANDS.md
 METER_LEVEL_RANGE_VRMS = (0.005, 2.0)
 _POINT_TOL_V = 1e-9
 
@@ -213,6 +215,11 @@ class Plan:
         return self.data.get("adaptive")
 
     @property
+    def frequency(self) -> dict | None:
+        """The [frequency] table (benchkit/sweep/frequency.py), or None."""
+        return self.data.get("frequency")
+
+    @property
     def n_readings(self) -> int:
         return self.measure["n_readings"]
 
@@ -330,6 +337,11 @@ def parse_plan(raw: Mapping, where: str) -> Plan:
         if not isinstance(adaptive, Mapping):
             raise UserError(f"{where}: field 'adaptive': must be a table [adaptive]")
         data["adaptive"] = _parse_adaptive(adaptive, data["bias"], where)
+    frequency = top.take("frequency", default=None)  # impedance against frequency per point
+    if frequency is not None:
+        from benchkit.sweep.frequency import parse_frequency
+
+        data["frequency"] = parse_frequency(frequency, where, METER_FREQ_RANGE_HZ, METER_LEVEL_RANGE_VRMS)
     top.done()
     return Plan(source=where, data=data)
 

@@ -228,6 +228,8 @@ def read_run_dir(run_dir: str | Path, *, sample: str | None = None,
             continue
         kept.setdefault(sid, [])
         dropped.setdefault(sid, [])
+        if "freq_list" in flags_of(r):  # impedance against frequency: benchkit/sweep/impedance.py
+            continue
         (dropped if exclude & flags_of(r) else kept)[sid].append((line, r))
     if not any(kept.values()):
         raise UserError(f"{path}: every point of the selection carries an excluded flag "

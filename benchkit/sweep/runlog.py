@@ -60,6 +60,8 @@ FLAGS = {
                  "(settle.max_prediction_u_pct_of_C0); C_std_F/sqrt(n_readings) is its standard uncertainty",
     "above_rated": "the plan took this sample above its part's rated voltage (limits.allow_above_rated, "
                    "confirmed by the operator); its later behaviour may not be the part's own",
+    "freq_list": "a row of the plan's frequency list at this bias point (benchkit/sweep/frequency.py): "
+                 "C_F, Rs_ohm, D of the (corrected) impedance at freq_Hz, not a point of the C(V) sweep",
     "retried": "an instrument exchange of this point needed a retry (no reply, a garbled or late reply, "
                "or a reconnect after a dropped link); run.json events 'link_recovered' say which",
 }

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from .instrument import Instrument
 from .setting import Setting
 
-FUNCTIONS = ("CPD", "CSRS", "CSD")   # Cp-D, Cs-Rs, Cs-D
+FUNCTIONS = ("CPD", "CSRS", "CSD", "ZTD")   # Cp-D, Cs-Rs, Cs-D, |Z|-theta (ohm, degrees)
 
 
 @dataclass(frozen=True)
@@ -52,7 +52,8 @@ class LCRMeter(Instrument):
     default_role = "meter"
 
     function = Setting("Measurement function: CPD (parallel C and D), CSRS (series C and "
-                       "series R), CSD (series C and D).", type="enum", values=FUNCTIONS)
+                       "series R), CSD (series C and D), ZTD (|Z| in ohm and phase in degrees, for an "
+                       "inductive part above resonance).", type="enum", values=FUNCTIONS)
     freq_Hz = Setting("Test signal frequency.", type="float", unit="Hz")
     ac_level_Vrms = Setting("Open-circuit test signal level; the level across the part is "
                             "lower (source resistance), see ac_dut_Vrms.", type="float",

@@ -64,7 +64,7 @@ class Wiring:
     stray_G_S: float = 1e-10
     residual_R_ohm: float = 1e-3  # short fixture: leads and contacts in series with the part
     residual_L_H: float = 10e-9
-    short_channel: int | None = None  # scanner channel wired to a shorting bar (none: no short)
+    short_channel: int | None = 16  # scanner channel wired to a shorting bar (None: no short)
 
     @property
     def residuals(self):

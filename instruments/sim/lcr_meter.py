@@ -7,8 +7,8 @@ import threading
 from instruments.sim.fixture import BiasFixture
 from instruments.sim.scpi import ScpiError, ScpiInstrument, format_float, parse_choice
 
-FUNCTIONS = ("CPD", "CSRS", "CSD")
-FREQ_RANGE_HZ = (20.0, 2e6)
+FUNCTIONS = ("CPD", "CSRS", "CSD", "ZTD")  # ZTD: |Z| in ohm, theta in degrees
+FREQ_RANGE_HZ = (20.0, 10e6)
 LEVEL_RANGE_VRMS = (0.005, 2.0)
 MEASUREMENT_TIME_S = 0.1
 OVERLOAD = 9.9e37  # the value SCPI answers for an overrange reading (SCPI-1999, from memory)
@@ -72,6 +72,7 @@ class LCRMeterSim(ScpiInstrument):
             "CPD": (m.Cp_F, m.D),
             "CSRS": (m.Cs_F, m.Rs_ohm),
             "CSD": (m.Cs_F, m.D),
+            "ZTD": (getattr(m, "Z_abs_ohm", None), getattr(m, "theta_deg", None)),
         }[self.function]
         return f"{format_float(primary)},{format_float(secondary)}"
 
