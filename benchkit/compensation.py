@@ -69,7 +69,7 @@ class Residuals:
         Zo, Zs = self.at(freq_Hz)
         return open_short(Z_m, Zo, Zs)
 
-    def to_csv(self) -> str:
+    def csv_text(self) -> str:
         buf = io.StringIO()
         w = csv.writer(buf, lineterminator="\n")
         w.writerow(RESIDUALS_COLUMNS)

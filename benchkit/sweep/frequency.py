@@ -185,7 +185,7 @@ class FrequencyList:
                                                   f"short channel {corr['short_channel']}")
                 from benchkit.atomic import write_text_atomic
 
-                write_text_atomic(run_dir / RESIDUALS_FILE, self.residuals.to_csv())
+                write_text_atomic(run_dir / RESIDUALS_FILE, self.residuals.csv_text())
             record["correction"] = {**self.residuals.summary(), **corr}
         self.log.meta["frequency_list"] = record
         self.log.event(self.t_s(), "frequency_list", n_frequencies=len(fq["freq_Hz"]),

@@ -160,7 +160,7 @@ def test_channel_range_and_limits_match_commands_md():
     lcr = load_profile("generic-lcr").settings
     assert (lcr["freq_Hz"].min, lcr["freq_Hz"].max) == (20.0, 10e6)
     assert (lcr["ac_level_Vrms"].min, lcr["ac_level_Vrms"].max) == (0.005, 2.0)
-    assert set(lcr["function"].values) == {"CPD", "CSRS", "CSD"}
+    assert set(lcr["function"].values) == {"CPD", "CSRS", "CSD", "ZTD"}
     sup = load_profile("generic-dc-supply").settings
     assert (sup["voltage_V"].min, sup["voltage_V"].max) == (-60.0, 60.0)
     assert (sup["current_limit_A"].min, sup["current_limit_A"].max) == (0.0001, 1.0)

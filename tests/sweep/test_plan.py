@@ -109,7 +109,7 @@ def test_plan_hash_is_stable_and_sensitive(tmp_path):
         ({"measure": {"n_readings": 2.5}}, "measure.n_readings"),
         ({"measure": {"dwel_s": 3.0}}, "measure.dwel_s"),  # a typo is refused, not ignored
         ({"measure": {"function": "ZTD"}}, "measure.function"),
-        ({"measure": {"freq_Hz": 5e6}}, "measure.freq_Hz"),
+        ({"measure": {"freq_Hz": 15e6}}, "measure.freq_Hz"),
         ({"limits": {"current_limit_A": 0}}, "limits.current_limit_A"),
         ({"limits": {"max_ramp_V_per_s": None}}, "limits.max_ramp_V_per_s"),
         ({"limits": {"allow_above_rated": "yes"}}, "limits.allow_above_rated"),

@@ -102,7 +102,7 @@ def test_residuals_file_round_trip_and_refusals(tmp_path):
     f = np.array([1e3, 1e4])
     r = Residuals(f, np.array([1e6 - 8e7j, 1e5 - 8e6j]), np.array([1e-3 + 6e-5j, 1e-3 + 6e-4j]))
     p = tmp_path / "res.csv"
-    p.write_text(r.to_csv())
+    p.write_text(r.csv_text())
     back = read_residuals(p)
     assert np.array_equal(back.freq_Hz, f) and np.array_equal(back.Z_open_ohm, r.Z_open_ohm)
     assert back.correct(1e4, 0.5 + 0.1j) == open_short(0.5 + 0.1j, r.Z_open_ohm[1], r.Z_short_ohm[1])
