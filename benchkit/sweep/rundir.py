@@ -189,6 +189,8 @@ def _check_rows(rows: list[dict], path: Path) -> None:
                 raise UserError(f"{path}: line {line}: column '{col}': {r[col][:20]!r} is not a "
                                 "whole number; the file was edited or damaged")
         key = (r["sample_id"], int(r["repeat"]), int(r["step_index"]))
+        if "freq_list" in flags_of(r):  # a frequency-list row: once per (point, frequency)
+            key = key + (r["freq_Hz"],)
         if key in seen:
             raise UserError(f"{path}: line {line} repeats the point of line {seen[key]} "
                             f"({key[0]} repeat {key[1]} step {key[2]}); the file was edited or "
