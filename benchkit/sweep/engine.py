@@ -19,9 +19,10 @@ from benchkit.sweep.point import PointMeasurement
 from benchkit.sweep.recovery import LinkRecoveries
 from benchkit.sweep.runlog import RunLog, join_flags
 from benchkit.sweep.safety import Guarded, GuardedClock, SignalGuard
+from benchkit.sweep.temperature import TemperatureVisits
 
 
-class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
+class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureVisits):
     """The loop over samples and points; each point, pass and recovery by its own module."""
 
     def __init__(self, inst, sweeps, plan: Plan, log: RunLog, clock, progress, guard, done_rows):
@@ -33,6 +34,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         self.supply = wrap(inst.supply)
         self.scanner = wrap(inst.scanner)
         self.thermo = wrap(inst.thermometer)
+        chamber = getattr(inst, "chamber", None)
+        self.chamber = wrap(chamber) if chamber is not None else None
         self.policy = dwell_policy(plan)
         self.done = len(done_rows)
         self.resumed = bool(done_rows)
@@ -52,6 +55,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         self._dwell_readings: list = []  # (time, (C_F, D, Rs_ohm) or None) of the last dwell
         self._raw = {"meter": inst.meter, "supply": inst.supply, "scanner": inst.scanner,
                      "thermometer": inst.thermometer}
+        if chamber is not None:
+            self._raw["chamber"] = chamber
         self._links = self._link_counts()
 
     def t_s(self) -> float:
@@ -59,6 +64,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
 
     def where(self) -> str:
         p = self.current
+        if p is None and self.soaking:
+            return f"{self.soaking}; {self.done} of {self.total} points saved"
         if p is None:
             return f"after {self.done} of {self.total} points"
         return (f"at sample {p.sample_id} repeat {p.repeat} step {p.step_index} "
@@ -85,6 +92,7 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
                 if sw.adaptive is not None:
                     self._adaptive_record(sw)
                 continue
+            self._enter_temperature(sw)  # bias off, chamber to the visit's set point, soak
             self._start_sample(sw)
             if first_in_session and self.resumed and 0 < start < n:
                 self._approach(sw, sw.points[start], start)
