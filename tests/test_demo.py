@@ -149,3 +149,13 @@ def test_temperature_spice_export_in_ngspice_within_1_pct_of_the_family(demo, tm
     assert len(vals) == len(cases), out[-2000:]
     for (T, V), c in zip(cases, vals):
         assert c == pytest.approx(fam.C(V, T), rel=0.01), (T, V)
+
+
+def test_budget_at_85_degC_uses_the_curve_measured_at_85_degC(demo, capsys):
+    from benchkit.cli import main
+
+    code = main(["budget", "BD-1004", "--library", str(demo["library"]), "--bias", "12", "--temp", "85"])
+    out = capsys.readouterr().out
+    assert code == 0
+    temp_line = next(line for line in out.splitlines() if line.startswith("temperature"))
+    assert "measured: C(12 V) of 1 curve(s) at 85 degC" in temp_line   # not the class-code bound

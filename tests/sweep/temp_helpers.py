@@ -22,7 +22,7 @@ name = "temp-test"
 [bias]
 start_V = 0.0
 stop_V = 12.0
-step_V = 6.0
+step_V = {step_V}
 branches = ["rising"]
 [measure]
 dwell_s = 1.0
@@ -46,8 +46,9 @@ max_soak_s = {max_soak}
 """
 
 
-def write_temp_plan(path: Path, points=(25.0, 85.0), order="as-listed", max_soak=7200.0):
-    path.write_text(PLAN.format(points=list(points), order=order, max_soak=max_soak), encoding="utf-8")
+def write_temp_plan(path: Path, points=(25.0, 85.0), order="as-listed", max_soak=7200.0, step_V=6.0):
+    path.write_text(PLAN.format(points=list(points), order=order, max_soak=max_soak, step_V=step_V),
+                    encoding="utf-8")
     return load_plan(path, PARTS)
 
 
