@@ -193,8 +193,6 @@ class TemperatureVisits:
             prev = (now, C)
             if quiet >= soak["drift_checks"]:
                 break
-            if abs(self.chamber.temperature_C - T) > soak["band_C"]:
-                in_band_since = None
             overdue("the part's reading never settled")
             self.gclock.sleep(soak["poll_s"])
         self.log.event(self.t_s(), "soak_settled", setpoint_C=T, fixture_C=fixture,

@@ -57,8 +57,17 @@ def test_the_soak_waits_for_the_part_not_only_the_chamber(tmp_path):
     assert abs(settled["fixture_C"] - 125.0) < 0.3
 
 
-def test_bias_is_off_while_the_chamber_moves(tmp_path):
-    plan = write_temp_plan(tmp_path / "plan.toml", points=(25.0, 85.0))
+@pytest.mark.parametrize("how, output", [("off", False), ("on-at-0V", True)])
+def test_bias_while_the_chamber_moves(tmp_path, how, output):
+    path = tmp_path / "plan.toml"
+    write_temp_plan(path, points=(25.0, 85.0))
+    if how != "off":
+        path.write_text(path.read_text().replace('ramp_rate_C_per_min = 6.0',
+                                                 f'ramp_rate_C_per_min = 6.0\nbias_during_transition = "{how}"'))
+    from benchkit.sweep.plan import load_plan
+
+    plan = load_plan(path)
+    assert plan.data["temperature"]["bias_during_transition"] == how
     seen = []
     with chamber_bench() as bench:
         real = bench.fixture.chamber.set_target
@@ -70,7 +79,7 @@ def test_bias_is_off_while_the_chamber_moves(tmp_path):
         bench.fixture.chamber.set_target = spy
         run_sweep(bench, plan, tmp_path / "run", handle_signals=False)
     moves = [s for s in seen if s[0] == 85.0]
-    assert moves and all(on is False and v == 0.0 for _, on, v in moves)
+    assert moves and all(on is output and v == 0.0 for _, on, v in moves)   # 0 V either way
 
 
 def test_a_temperature_plan_needs_a_chamber(tmp_path):
