@@ -36,7 +36,7 @@ from benchkit.sweep.summary import final_state_line, sample_lines, summary_recor
 from benchkit.sweep.runlog import FLAGS, RunFileError, RunLog, utc_now
 from benchkit.sweep.safety import Interrupted, SignalGuard, arm_last_resort, disarm_last_resort
 from benchkit.sweep.sources import BenchSource
-from benchkit.sweep.temperature import chamber_shutdown, check_chamber, first_visits
+from benchkit.sweep.temperature import chamber_shutdown, check_chamber, first_visits, per_sample
 
 
 @dataclass(frozen=True)
@@ -152,7 +152,7 @@ def resume_sweep(
         check_bench_limits(stored, sweeps, bench_ranges(src))
         wait_s, _ = discharge_wait_s(stored, sweeps)
         above, consent = _consent(stored, sweeps, confirm_above_rated)
-        check_against_record(meta, run_dir, sweeps, recorded_parts, wait_s, above)
+        check_against_record(meta, run_dir, per_sample(sweeps), recorded_parts, wait_s, above)
         sweeps = [replay_adaptive(sw, log.rows) if sw.adaptive is not None else sw for sw in sweeps]
         check_prefix(log.rows, sweeps, meta["run_id"], run_dir)
         log.flag_samples = {sid: ("above_rated",) for sid in above}

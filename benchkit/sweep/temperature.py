@@ -120,6 +120,12 @@ def first_visits(sweeps: list) -> list:
     return out
 
 
+def per_sample(sweeps: list) -> list:
+    """One sweep per sample holding the points of all its visits (what run.json records)."""
+    return [replace(sw, points=tuple(p for w in sweeps if w.sample is sw.sample for p in w.points))
+            for sw in first_visits(sweeps)]
+
+
 class TemperatureVisits:
     """The engine's temperature job (mixed into benchkit.sweep.engine.SweepEngine)."""
 

@@ -42,7 +42,10 @@ def test_claim_at_125_is_met_by_the_125_points_not_by_the_25_ones(hot_run, tmp_p
         claim = tmp_path / f"claim-{temp}.csv"
         claim.write_text(tools.claim_text("BD-1009", BIAS, truth, tolerance="+-5%", temp_C=temp))
         out = tmp_path / f"report-{temp}"
-        code = main(["verify", "--claim", str(claim), str(run_dir), "--out", str(out)])
+        # the claim states the set level, the part sees less (100 ohm source): accepted here,
+        # the temperature is what this test is about
+        code = main(["verify", "--claim", str(claim), str(run_dir), "--out", str(out),
+                     "--accept-other-conditions"])
         assert code == want, capsys.readouterr().out
         rep = json.loads((out / "report.json").read_text())
         text = json.dumps(rep)
