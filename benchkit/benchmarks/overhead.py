@@ -131,7 +131,8 @@ def _terminations():
 
     return {role: load_profile(name) for role, name in
             (("meter", "generic-lcr"), ("supply", "generic-dc-supply"),
-             ("scanner", "generic-scanner"), ("thermometer", "generic-thermometer"))}
+             ("scanner", "generic-scanner"), ("thermometer", "generic-thermometer"),
+             ("chamber", "generic-chamber"))}
 
 
 def _row_text(i: int) -> bytes:

@@ -40,6 +40,8 @@ def register(subparsers) -> None:
                    help="sweep branch of the runs (default rising)")
     p.add_argument("--model", default="auto", help="fit model for run directories (default auto)")
     p.add_argument("--out", metavar="REPORT.json", help="also write the decisions as JSON")
+    p.add_argument("--families", metavar="DIR", help="also write each sample's C(V, T) family "
+                                                     "document there (for 'benchkit export')")
     p.set_defaults(func=run)
 
 
@@ -75,5 +77,13 @@ def run(args) -> int:
                "parts": verdicts, "samples": [c.to_dict() for c in checks]}
         write_text_atomic(Path(args.out), json.dumps(doc, indent=2, allow_nan=False) + "\n")
         print(f"report: {args.out}")
+    if args.families:
+        from benchkit.atomic import write_text_atomic
+        from benchkit.exports.paths import safe_stem
+
+        for fam in families:
+            stem = safe_stem(f"{fam.part_id}-{fam.sample_id}-{fam.branch}")
+            path = write_text_atomic(Path(args.families) / f"{stem}.family.json", fam.to_json())
+            print(f"family: {path}")
     overall = combine_checks(checks)
     return {CONFORMING: EXIT_OK, NONCONFORMING: EXIT_FAILED}.get(overall, EXIT_UNDECIDED)

@@ -1,4 +1,7 @@
-"""`benchkit export CURVE.json`: one curve document as a csv table, a JSON document or a SPICE subcircuit."""
+"""`benchkit export CURVE.json`: one curve document as a csv table, a JSON document or a SPICE subcircuit.
+
+A C(V, T) family document (benchkit class-check --families) exports as one SPICE subcircuit
+with the temperature as a parameter (benchkit/exports/spice_temp.py)."""
 
 from __future__ import annotations
 
@@ -46,9 +49,31 @@ def run(args) -> int:
         raise UserError(f"{src}: no such curve file") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise UserError(f"{src}: unreadable ({exc})") from None
+    if '"benchkit-curve-family"' in text:
+        return _export_family(src, text, args)
     curve = curve_from_json(text, str(src))
     target = export_curve(curve, args.format, args.out, esr_ohm=args.esr, name=args.name, n_points=args.points,
                           source_note=f"curve document {src.name}", bias_V=args.bias,
                           fixture=args.fixture, touchstone_version=args.touchstone_version)
+    print(f"{src} -> {target}")
+    return 0
+
+
+def _export_family(src: Path, text: str, args) -> int:
+    from benchkit.atomic import write_text_atomic
+    from benchkit.exports.spice_temp import spice_family_subcircuit
+    from fits.errors import FitsError
+    from fits.family import CurveFamily
+
+    if args.format != "spice":
+        raise UserError(f"{src}: a C(V, T) family exports as --format spice only (or export "
+                        "one of its member curves)")
+    try:
+        family = CurveFamily.from_json(text, str(src))
+    except FitsError as exc:
+        raise UserError(str(exc)) from None
+    netlist = spice_family_subcircuit(family, name=args.name, esr_ohm=args.esr,
+                                      source_note=f"curve family {src.name}")
+    target = write_text_atomic(Path(args.out), netlist)
     print(f"{src} -> {target}")
     return 0

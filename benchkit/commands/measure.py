@@ -42,6 +42,8 @@ def register(subparsers) -> None:
     p.add_argument("--io-timeout-s", type=float, metavar="S", help="instrument reply timeout in seconds (default: the profile's, else 5)")
     sim = p.add_argument_group("simulated bench (with --sim)")
     sim.add_argument("--lot", action="store_true", help="put the demo lot on the fixture instead of the demo parts")
+    sim.add_argument("--fixture", type=Path, metavar="FIXTURE.toml",
+                     help="put these demo samples on the fixture (e.g. data/fixture-temperature.toml)")
     sim.add_argument("--virtual-clock", action="store_true", help="run on a virtual clock: dwell and ramps take no real time")
     sim.add_argument("--clock-speed", type=float, metavar="K", help="with --virtual-clock: each clock second also waits 1/K real seconds")
     sim.add_argument("--seed", type=int, default=0, help="seed of the simulated noise (default 0)")
@@ -53,7 +55,7 @@ def _check_args(args) -> None:
     if args.resume is not None:
         extra = [n for n, v in (("--out", args.out), ("--sim", args.sim), ("--lot", args.lot),
                                 ("--virtual-clock", args.virtual_clock), ("--fault", args.fault),
-                                ("--parts", args.parts)) if v]
+                                ("--parts", args.parts), ("--fixture", args.fixture)) if v]
         if extra:
             raise UserError(f"--resume takes its settings from RUN_DIR/run.json; drop {', '.join(extra)}")
         return
@@ -62,7 +64,8 @@ def _check_args(args) -> None:
     if args.plan is None or args.out is None:
         raise UserError("--plan PLAN.toml and --out RUN_DIR are needed (or --resume RUN_DIR)")
     if not args.sim:
-        for name, v in (("--lot", args.lot), ("--virtual-clock", args.virtual_clock), ("--fault", args.fault)):
+        for name, v in (("--lot", args.lot), ("--virtual-clock", args.virtual_clock), ("--fault", args.fault),
+                        ("--fixture", args.fixture)):
             if v:
                 raise UserError(
                     f"{name} works with --sim only"
@@ -80,12 +83,21 @@ def _make_clock(virtual: bool, speed: float | None):
     return VirtualClock(speed=speed) if virtual else RealClock()
 
 
-def _make_sim(lot: bool, seed: int, faults: list[str], clock):
+def _make_sim(lot: bool, seed: int, faults: list[str], clock, fixture: str | None = None):
     from benchkit.commands import sim as sim_command
     from instruments.sim import Fault, FaultSpecError, SimBenchError
 
     try:
         parsed = [Fault.parse(f) for f in faults]
+        if fixture is not None:  # the demo parts on another fixture (e.g. the chamber's)
+            from benchkit.catalogue import DEMO_PARTS, PartsFileError, load_fixture, load_parts
+
+            try:
+                parts = load_parts(DEMO_PARTS)
+                slots = load_fixture(fixture, parts)
+            except PartsFileError as exc:
+                raise UserError(str(exc)) from None
+            return sim_command.sim_bench(parts, slots, clock=clock, faults=parsed, seed=seed)
         return sim_command.demo_bench(clock=clock, faults=parsed, seed=seed, lot=lot)
     except (FaultSpecError, SimBenchError) as exc:
         raise UserError(f"--sim: {exc}") from None
@@ -109,10 +121,14 @@ def run(args) -> int:
     record = {
         "parts_file": str(args.parts.resolve()) if args.parts else None,
         "sim": {"lot": args.lot, "seed": args.seed, "faults": list(args.fault),
+                "fixture": str(args.fixture.resolve()) if args.fixture else None,
                 "virtual_clock": args.virtual_clock, "clock_speed": args.clock_speed} if args.sim else None,
     }
     if args.sim:
-        bench = _make_sim(args.lot, args.seed, args.fault, clock)
+        if args.lot and args.fixture:
+            raise UserError("give --lot or --fixture, not both")
+        bench = _make_sim(args.lot, args.seed, args.fault, clock,
+                          str(args.fixture) if args.fixture else None)
         with bench:
             result = sweep.run_sweep(bench, plan, args.out, clock, progress, parts=parts,
                                      io_timeout_s=args.io_timeout_s, extra_record=record,
@@ -141,7 +157,8 @@ def _resume(args, progress) -> int:
         if args.bench is not None:
             raise UserError(f"{args.resume}: this run used the simulated bench (--sim); resume it without --bench")
         clock = _make_clock(bool(sim.get("virtual_clock")), sim.get("clock_speed"))
-        bench = _make_sim(bool(sim.get("lot")), int(sim.get("seed") or 0), [], clock)  # faults are not re-armed
+        bench = _make_sim(bool(sim.get("lot")), int(sim.get("seed") or 0), [], clock,  # faults are not re-armed
+                          sim.get("fixture"))
         with bench:
             result = sweep.resume_sweep(args.resume, bench, clock, progress, plan=plan, io_timeout_s=args.io_timeout_s,
                                         confirm_above_rated=_confirmation(args))

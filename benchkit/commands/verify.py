@@ -85,7 +85,7 @@ def run(args) -> int:
     plan = plan_for_lot(args.lot_size, args.aql, args.level) if args.lot_size is not None else None
     part_id = args.part or claim.part_id
     samples, skipped = measured.load_inputs(args.inputs, part_id, args.branch, args.model,
-                                            args.measured_age_h)
+                                            args.measured_age_h, temp_C=claim.temp_C)
     v = compare.verify(claim, samples, skipped, tol, args.rule, args.k,
                        args.meter_accuracy_pct, args.aging_k, plan,
                        accept_other_conditions=args.accept_other_conditions)

@@ -24,6 +24,7 @@ from benchkit.sweep import rundir, runlog
 from benchkit.errors import UserError
 from benchkit.library import fitsbridge
 from benchkit.library.store import Library, RunInfo
+from benchkit.sweep.tempgroups import split_by_temperature
 
 
 @dataclass
@@ -119,17 +120,19 @@ def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str 
             continue
         source = {"points_sha256": sha, "run_id": meta.get("run_id"), "sample_id": sample_id,
                   "part_id": part_id}
-        try:
-            outcome = fitsbridge.fit_branches(
-                smp.bias_V, smp.C_F, smp.branch, smp.sigma_F, model=model,
-                conditions=rundir.fit_conditions(meta, smp.rows), source=source,
-                part_id=part_id, sample_id=sample_id)
-        except fitsbridge.fits_errors() as exc:
-            raise UserError(f"{points_path}: sample {sample_id}: {exc}") from None
-        _attach_wideband(outcome.curves, run_dir, sample_id, str(points_path))
-        for branch, curve in outcome.curves.items():
-            brows = smp.select(branch).rows
-            summary.curves.append(FittedCurve(sample_id, branch, curve, esr_estimate(brows), len(brows)))
+        for temp_C, group in split_by_temperature(smp):  # one curve per temperature of the run
+            at = "" if group is smp else f" at {temp_C:.1f} degC"
+            try:
+                outcome = fitsbridge.fit_branches(
+                    group.bias_V, group.C_F, group.branch, group.sigma_F, model=model,
+                    conditions=rundir.fit_conditions(meta, group.rows), source=source,
+                    part_id=part_id, sample_id=sample_id)
+            except fitsbridge.fits_errors() as exc:
+                raise UserError(f"{points_path}: sample {sample_id}{at}: {exc}") from None
+            _attach_wideband(outcome.curves, run_dir, sample_id, str(points_path))
+            for branch, curve in outcome.curves.items():
+                brows = group.select(branch).rows
+                summary.curves.append(FittedCurve(sample_id, branch, curve, esr_estimate(brows), len(brows)))
     run = RunInfo(sha, meta.get("run_id"), str(Path(run_dir).resolve()), status, meta)
     ids = lib.add_curves([(fc.curve, fc.esr_ohm) for fc in summary.curves], part_id=part_id, run=run,
                          where=str(run_dir))

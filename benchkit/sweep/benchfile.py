@@ -16,7 +16,7 @@ from typing import Any, Mapping
 from benchkit.bounded import check_id, loads_toml, safe_repr, unknown_key
 from benchkit.errors import UserError
 from benchkit.sweep.plan import MAX_CHANNEL, SampleRef
-from instruments.roles import DEFAULT_PROFILES, ROLES
+from instruments.roles import ALL_ROLES, DEFAULT_PROFILES, OPTIONAL_ROLES, ROLES
 
 
 
@@ -76,7 +76,7 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
     if not isinstance(inst_raw, Mapping):
         raise UserError(f"{where}: missing [instrument.meter], [instrument.supply], [instrument.scanner], [instrument.thermometer]")
     instruments: dict[str, InstrumentRef] = {}
-    for role in ROLES:
+    for role in ROLES + tuple(r for r in OPTIONAL_ROLES if r in inst_raw):  # a chamber is optional
         t = inst_raw.get(role)
         if not isinstance(t, Mapping):
             raise UserError(f"{where}: missing table [instrument.{role}] with resource = \"...\"")
@@ -98,9 +98,9 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
             raise UserError(f"{where}: [instrument.{role}]: field 'timeout_s' must be a positive number "
                             "of seconds, at most 600")
         instruments[role] = InstrumentRef(role, res.strip(), prof, None if tmo is None else float(tmo))
-    extra_roles = sorted(set(inst_raw) - set(ROLES), key=str)
+    extra_roles = sorted(set(inst_raw) - set(ALL_ROLES), key=str)
     if extra_roles:
-        raise unknown_key(where, extra_roles[0], ROLES, "instrument role")
+        raise unknown_key(where, extra_roles[0], ALL_ROLES, "instrument role")
     chans_raw = raw.get("channel", raw.get("channels", []))
     if not isinstance(chans_raw, list):
         raise UserError(f"{where}: 'channel' must be an array of [[channel]] tables")
@@ -163,9 +163,10 @@ class Instruments:
     scanner: Any
     thermometer: Any
     refs: Mapping[str, InstrumentRef] = field(default_factory=dict)
+    chamber: Any = None   # optional: a bench without a chamber measures at room temperature
 
     def by_role(self) -> dict[str, Any]:
-        return {r: getattr(self, r) for r in ROLES}
+        return {r: getattr(self, r) for r in ALL_ROLES if getattr(self, r) is not None}
 
     def record(self) -> dict:
         """run.json 'instruments': resource, profile and *IDN? answer per role."""
@@ -185,9 +186,10 @@ def open_instruments(bench: BenchFile, timeout_s: float | None = None):
     """Open and identify all four instruments; bad address or silence -> UserError."""
     import pyvisa
 
-    from instruments.drivers import BiasSupply, LCRMeter, Scanner, Thermometer
+    from instruments.drivers import BiasSupply, LCRMeter, Scanner, TemperatureChamber, Thermometer
 
-    classes = {"meter": LCRMeter, "supply": BiasSupply, "scanner": Scanner, "thermometer": Thermometer}
+    classes = {"meter": LCRMeter, "supply": BiasSupply, "scanner": Scanner, "thermometer": Thermometer,
+               "chamber": TemperatureChamber}
     with contextlib.ExitStack() as stack:
         try:
             rm = pyvisa.ResourceManager("@py")
@@ -195,7 +197,7 @@ def open_instruments(bench: BenchFile, timeout_s: float | None = None):
             raise UserError(f"cannot start the pyvisa-py backend ({exc}); check the installation") from None
         stack.callback(_close_quietly, rm)
         opened: dict[str, Any] = {}
-        for role in ROLES:
+        for role in (r for r in ALL_ROLES if r in bench.instruments):
             ref = bench.instruments[role]
             tmo = ref.timeout_s if ref.timeout_s is not None else timeout_s
             kwargs = {"profile": ref.profile, "rm": rm, "role": role}

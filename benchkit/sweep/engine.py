@@ -20,9 +20,11 @@ from benchkit.sweep.point import PointMeasurement
 from benchkit.sweep.recovery import LinkRecoveries
 from benchkit.sweep.runlog import RunLog, join_flags
 from benchkit.sweep.safety import Guarded, GuardedClock, SignalGuard
+from benchkit.sweep.temperature import TemperatureVisits
 
 
-class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, FrequencyList):
+class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureVisits,
+                  FrequencyList):
     """The loop over samples and points; each point, pass and recovery by its own module."""
 
     def __init__(self, inst, sweeps, plan: Plan, log: RunLog, clock, progress, guard, done_rows):
@@ -35,6 +37,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, FrequencyLis
         self.supply = wrap(inst.supply)
         self.scanner = wrap(inst.scanner)
         self.thermo = wrap(inst.thermometer)
+        chamber = getattr(inst, "chamber", None)
+        self.chamber = wrap(chamber) if chamber is not None else None
         self.policy = dwell_policy(plan)
         self.done = len(done_rows)
         self.resumed = bool(done_rows)
@@ -54,6 +58,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, FrequencyLis
         self._dwell_readings: list = []  # (time, (C_F, D, Rs_ohm) or None) of the last dwell
         self._raw = {"meter": inst.meter, "supply": inst.supply, "scanner": inst.scanner,
                      "thermometer": inst.thermometer}
+        if chamber is not None:
+            self._raw["chamber"] = chamber
         self._links = self._link_counts()
 
     def t_s(self) -> float:
@@ -61,6 +67,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, FrequencyLis
 
     def where(self) -> str:
         p = self.current
+        if p is None and self.soaking:
+            return f"{self.soaking}; {self.done} of {self.total} points saved"
         if p is None:
             return f"after {self.done} of {self.total} points"
         return (f"at sample {p.sample_id} repeat {p.repeat} step {p.step_index} "
@@ -89,6 +97,7 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, FrequencyLis
                 if sw.adaptive is not None:
                     self._adaptive_record(sw)
                 continue
+            self._enter_temperature(sw)  # bias off, chamber to the visit's set point, soak
             self._start_sample(sw)
             if first_in_session and self.resumed and 0 < start < n:
                 self._approach(sw, sw.points[start], start)
@@ -127,14 +136,14 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, FrequencyLis
         elif row["temp_C"] is not None and \
                 abs(row["temp_C"] - self._ref_temp) > self.plan.limits["temp_tolerance_C"]:
             row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
-        with self.guard.transaction():  # a row (with its frequency list) is written whole or not at all
-            self.log.append_point(row)
-            for r in extra:
+        with self.guard.transaction():  # a row (with its frequency list) is written whole or not
+            self.log.append_point(row)  # at all, and counted with it (a signal deferred to the end
+            for r in extra:  # of this block must find it counted)
                 self.log.append_point(r)
-        if sw.adaptive is not None:  # its planner needs the rows; other samples' stay on disk
-            self._measured.setdefault(p.sample_id, []).append(row)
-        self.done += 1
-        self.n_new += 1
+            if sw.adaptive is not None:  # its planner needs the rows; other samples' stay on disk
+                self._measured.setdefault(p.sample_id, []).append(row)
+            self.done += 1
+            self.n_new += 1
         if self.progress is not None:
             c = row["C_F"]
             ctext = "overload" if c is None else f"C = {c:.5g} F"

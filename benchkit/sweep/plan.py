@@ -169,6 +169,7 @@ class SampleSweep:
     # adaptive steps: a benchkit.sweep.adaptive.LoopPlanner; `points` is then its first (coarse)
     # pass and the engine asks it for each further pass
     adaptive: Any = None
+    temp_set_C: float | None = None  # the chamber set point of this visit (benchkit/sweep/temperature.py)
 
 
 @dataclass(frozen=True)
@@ -332,6 +333,11 @@ def parse_plan(raw: Mapping, where: str) -> Plan:
         if not isinstance(settle, Mapping):
             raise UserError(f"{where}: field 'settle': must be a table [settle]")
         data["settle"] = _parse_settle(settle, where)
+    temperature = top.take("temperature", default=None)
+    if temperature is not None:
+        from benchkit.sweep.temperature import parse_temperature
+
+        data["temperature"] = parse_temperature(temperature, where, _Fields)
     adaptive = top.take("adaptive", default=None)
     if adaptive is not None:
         if not isinstance(adaptive, Mapping):
@@ -629,7 +635,9 @@ def build_sweeps(
             continue
         pts = PlannedPoints(s.sample_id, plan.sequence(part.rated_V), plan.bias["repeats"])
         out.append(SampleSweep(s, part, cond, pts))
-    return out
+    from benchkit.sweep.temperature import expand_sweeps
+
+    return expand_sweeps(plan, out)  # the temperature loop around the bias sweep, if planned
 
 
 def adaptive_planner(plan: Plan, part: Any):

@@ -36,6 +36,7 @@ from benchkit.sweep.summary import final_state_line, sample_lines, summary_recor
 from benchkit.sweep.runlog import FLAGS, RunFileError, RunLog, utc_now
 from benchkit.sweep.safety import Interrupted, SignalGuard, arm_last_resort, disarm_last_resort
 from benchkit.sweep.sources import BenchSource
+from benchkit.sweep.temperature import chamber_shutdown, check_chamber, first_visits, per_sample
 
 
 @dataclass(frozen=True)
@@ -89,6 +90,7 @@ def run_sweep(
     check_bench_limits(plan, sweeps, bench_ranges(src))
     above, consent = _consent(plan, sweeps, confirm_above_rated)
     with src.open() as inst:
+        check_chamber(plan, inst)
         meta = _new_meta(plan, sweeps, inst, src, clock, wait_s, wait_how, extra_record)
         meta["above_rated"] = {"allowed": plan.limits["allow_above_rated"], "samples": above,
                                "confirmed_by": consent}
@@ -150,11 +152,12 @@ def resume_sweep(
         check_bench_limits(stored, sweeps, bench_ranges(src))
         wait_s, _ = discharge_wait_s(stored, sweeps)
         above, consent = _consent(stored, sweeps, confirm_above_rated)
-        check_against_record(meta, run_dir, sweeps, recorded_parts, wait_s, above)
+        check_against_record(meta, run_dir, per_sample(sweeps), recorded_parts, wait_s, above)
         sweeps = [replay_adaptive(sw, log.rows) if sw.adaptive is not None else sw for sw in sweeps]
         check_prefix(log.rows, sweeps, meta["run_id"], run_dir)
         log.flag_samples = {sid: ("above_rated",) for sid in above}
         with src.open() as inst:
+            check_chamber(stored, inst)
             # the session's clock and instruments go into the event; the top level keeps the first
             log.event(None, "resume", points_done=len(log.rows), instruments=inst.record(),
                       clock="virtual" if getattr(clock, "virtual", False) else "real",
@@ -254,9 +257,9 @@ def _new_meta(plan, sweeps, inst, src, clock, wait_s, wait_how, extra) -> dict:
                     "ac_level_Vrms": sw.conditions.ac_level_Vrms,
                     "conditions_source": sw.conditions.source,
                 },
-                "n_points": len(sw.points),
+                "n_points": sum(len(w.points) for w in sweeps if w.sample is sw.sample),
             }
-            for sw in sweeps
+            for sw in first_visits(sweeps)  # each sample once, also when visited at several temperatures
         ],
         "conditions": top,
         "n_points_planned": sum(len(sw.points) for sw in sweeps),
@@ -346,6 +349,11 @@ def _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, done
             log.event(t, "supply_final_state", **state)
             if progress is not None:
                 progress.note(f"benchkit: {final_state_line(state)}")
+            # then the chamber to the plan's safe temperature (a plan with a temperature list)
+            chamber_ok = chamber_shutdown(getattr(inst, "chamber", None) if plan.data.get("temperature")
+                                          else None, plan, log, t)
+            if chamber_ok is False:
+                print(f"benchkit: WARNING: {log.meta['events'][-1].get('detail')}", file=sys.stderr)
             if status == "complete":
                 log.event(t, "complete", points_new=engine.n_new)
             else:
@@ -362,6 +370,8 @@ def _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, done
             if src.sim is not None and hasattr(src.sim, "supply_state"):
                 with contextlib.suppress(Exception):
                     log.meta["sim_final_supply_state"] = dict(src.sim.supply_state())
+                    if chamber_ok is not None:
+                        log.meta["sim_final_chamber_state"] = dict(src.sim.chamber_state())
             try:
                 log.set_status(status, reason)
             except RunFileError as exc:  # the bias is off already; say what is not on disk

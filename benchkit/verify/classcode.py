@@ -118,7 +118,7 @@ def check_class_code(family, code, rule: str = "guarded", k: float = 2.0,
     if NONCONFORMING in verdicts:
         check.verdict = NONCONFORMING
         w = check.worst
-        check.reason = (f"{w.change_pct:+.2f} % +- {w.U_pct:.2f} % at {w.temp_C:g} degC is "
+        check.reason = (f"{w.change_pct:+.2f} % +- {w.U_pct:.2f} % at {w.temp_C:.1f} degC is "
                         f"outside the {code.code} band {w.decision.tol_lo:+g}..{w.decision.tol_hi:+g} %")
     elif not check.points:
         check.reason = f"no measured temperature inside the {code.code} range {lo:g}..{hi:g} degC"
@@ -129,12 +129,12 @@ def check_class_code(family, code, rule: str = "guarded", k: float = 2.0,
         check.verdict = combine_verdicts(verdicts)
         if check.verdict == NOT_DECIDABLE:
             undecided = [p.temp_C for p in check.points if p.decision.verdict == NOT_DECIDABLE]
-            check.reason = (f"within U of the band edge at {', '.join(f'{t:g}' for t in undecided[:4])}"
+            check.reason = (f"within U of the band edge at {', '.join(f'{t:.1f}' for t in undecided[:4])}"
                             " degC")
         else:
             w = check.worst
             check.reason = (f"every temperature inside the band; closest {w.change_pct:+.2f} % "
-                            f"+- {w.U_pct:.2f} % at {w.temp_C:g} degC")
+                            f"+- {w.U_pct:.2f} % at {w.temp_C:.1f} degC")
     return check
 
 

@@ -91,7 +91,7 @@ def _fits():
 
 
 def load_inputs(paths, part_id: str, branch: str = "rising", model: str = "auto",
-                measured_age_h: float | None = None):
+                measured_age_h: float | None = None, temp_C: float | None = None):
     """Read every RUN_DIR or CURVE.json; return (samples of part_id, skipped)."""
     samples: list[MeasuredSample] = []
     skipped: list[Skipped] = []
@@ -100,7 +100,7 @@ def load_inputs(paths, part_id: str, branch: str = "rising", model: str = "auto"
     for raw in paths:
         p = Path(raw)
         if p.is_dir():
-            got, skip = _from_run(p, part_id, branch, model)
+            got, skip = _from_run(p, part_id, branch, model, temp_C)
         elif p.is_file():
             got, skip = _from_curve(p, part_id)
         else:
@@ -147,7 +147,23 @@ def _mean(values) -> float | None:
     return float(a.mean()) if a.size else None
 
 
-def _from_run(run_dir: Path, part_id: str, branch: str, model: str):
+def _at_temperature(smp, temp_C: float | None):
+    """The sample's points at the claim's temperature, when the run measured several
+    (benchkit/sweep/tempgroups.py); (points, None) or (None, why not)."""
+    from benchkit.sweep.tempgroups import TEMP_GROUP_TOL_C, split_by_temperature
+
+    groups = split_by_temperature(smp)
+    if len(groups) == 1:
+        return smp, None
+    want = 25.0 if temp_C is None else float(temp_C)   # no stated temperature: the reference
+    near = [(abs(t - want), g) for t, g in groups if abs(t - want) <= TEMP_GROUP_TOL_C]
+    if not near:
+        have = ", ".join(f"{t:.1f}" for t, _ in groups)
+        return None, f"no points at {want:g} degC (measured at {have} degC)"
+    return min(near, key=lambda x: x[0])[1], None
+
+
+def _from_run(run_dir: Path, part_id: str, branch: str, model: str, temp_C: float | None = None):
     fits, FitsError = _fits()
     data = rundir.read_run_dir(run_dir, action="verified")
     meta = data.meta
@@ -157,6 +173,10 @@ def _from_run(run_dir: Path, part_id: str, branch: str, model: str):
         pid = smp.part_id
         if pid != part_id:
             skipped.append(Skipped(sid, pid, origin, f"part {pid}, not the claimed {part_id}"))
+            continue
+        smp, why = _at_temperature(smp, temp_C)  # a claim at 85 degC meets the points at 85 degC
+        if smp is None:
+            skipped.append(Skipped(sid, pid, origin, why))
             continue
         present = smp.branches()
         used_branch = branch if branch in present else present[0]

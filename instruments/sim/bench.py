@@ -13,7 +13,7 @@ from typing import Iterable, Mapping, Sequence
 import numpy as np
 
 from instruments.clock import RealClock
-from instruments.roles import ALL_ROLES, DEFAULT_PROFILES, ROLES
+from instruments.roles import ALL_ROLES, DEFAULT_PROFILES
 from instruments.sim.chamber import ChamberSim
 from instruments.sim.dc_supply import DCSupplySim
 from instruments.sim.faults import Fault, FaultPlan
@@ -180,8 +180,6 @@ class SimBench:
         lines = ["# Bench file of a simulated bench (benchkit sim). Roles, resources, profiles,",
                  "# and which sample sits on which scanner channel.", ""]
         for role, resource in self.resources.items():
-            if role not in ROLES:
-                continue   # the bench file lists the four roles every bench has
             lines += [f"[instrument.{role}]", f"resource = {_toml_str(resource)}",
                       f"profile = {_toml_str(PROFILES[role])}", ""]
         for entry in self.channels:

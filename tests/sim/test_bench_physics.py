@@ -173,7 +173,7 @@ def test_chamber_temperature_reaches_thermometer_and_parts(inst, bench):
 def test_bench_file_parses_and_names_every_instrument_and_sample(bench):
     # contract section 4: [instrument.<role>] resource/profile, [[channel]] entries
     doc = tomllib.loads(bench.bench_file_text())
-    assert set(doc["instrument"]) == {"meter", "supply", "scanner", "thermometer"}
+    assert set(doc["instrument"]) == {"meter", "supply", "scanner", "thermometer", "chamber"}
     for role, entry in doc["instrument"].items():
         assert entry["resource"] == bench.resources[role]
         assert entry["profile"].startswith("generic-")

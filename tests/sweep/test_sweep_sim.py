@@ -119,7 +119,7 @@ def test_run_json_describes_the_run(swept, tmp_path_factory):
     assert meta["clock"] == "virtual" and meta["run_id"] == rows[0]["run_id"] == result.run_id
     sha = hashlib.sha256((result.run_dir / "points.csv").read_bytes()).hexdigest()
     assert meta["points_sha256"] == sha == result.points_sha256
-    assert set(meta["instruments"]) == {"meter", "supply", "scanner", "thermometer"}
+    assert set(meta["instruments"]) == {"meter", "supply", "scanner", "thermometer", "chamber"}
     assert all(i["idn"].startswith("benchkit-sim,") for i in meta["instruments"].values())
     assert [s["sample_id"] for s in meta["samples"]] == [s["sample_id"] for s in SAMPLES]
     assert meta["samples"][0]["part"]["rated_V"] == 6.3 and "sim" not in meta["samples"][0]["part"]

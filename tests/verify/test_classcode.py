@@ -38,7 +38,7 @@ def test_an_honest_x7r_part_conforms_and_a_mislabelled_one_does_not():
     bad = check_class_code(family(MISLABELLED, rel_u=0.001), x7r)
     assert ok.verdict == "conforming" and ok.covered, ok.reason
     assert bad.verdict == "nonconforming"
-    assert "at 125 degC" in bad.reason and "-15..+15 %" in bad.reason
+    assert "at 125.0 degC" in bad.reason and "-15..+15 %" in bad.reason
     # the measured temperatures are decided as measured, the grid between them interpolated
     at = {p.temp_C: p for p in bad.points}
     assert at[125.0].measured and at[125.0].change_pct == pytest.approx(-24.0, abs=1e-9)
