@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from benchkit.errors import UserError
-from benchkit.library import fitsbridge, schema
+from benchkit.library import fitsbridge, pack
 from benchkit.library.records import PartRecord
 
 BRANCH_CODES = {None: 0, "": 0, "rising": 1, "falling": 2}
@@ -120,59 +120,36 @@ class CurveTable:
         return C, u
 
 
-def _ints(text: str | None, n: int) -> np.ndarray:
-    if n == 0:
-        return np.zeros(0, dtype=np.int64)
-    out = np.fromstring(text, dtype=np.int64, sep=",")  # text mode (sep given): parsed in C
-    if out.size != n:  # pragma: no cover - a damaged file
-        raise UserError("library table: row count mismatch while loading; the file may be damaged")
-    return out
-
-
-# One aggregate row per model variant. All aggregates of one SELECT see the rows in the same
-# order (SQLite feeds each row to every aggregate in one pass), so the columns line up. Numbers
-# come as hex of their float64 blobs (exact, no decimal round trip): the whole library arrives
-# as a few long strings that numpy parses in C, not as 100,000 Python tuples.
-_GROUP_SQL = (
-    "SELECT count(*), group_concat(c.id), group_concat(c.part_id, char(31)), "
-    "group_concat(hex(c.numbers_f64), ''), group_concat(hex(c.params_f64), ''), "
-    "group_concat(hex(coalesce(c.covariance_f64, ?)), '') "
-    "FROM curve c WHERE c.model = ? AND c.param_names = ? AND c.params_f64 IS NOT NULL"
-)
-N_NUMBERS = 5  # valid_lo_V, valid_hi_V, temp_C, origin rank, branch code (schema.py)
-
-
 def load_table(conn, generation: int) -> CurveTable:
-    """Read parts and curves (inside one read snapshot) into arrays."""
+    """Read parts and the packed curves (inside one read snapshot) into arrays (pack.py).
+
+    Curves superseded by a newer record of the same curve (Library.revise_curve) are left out:
+    the query answers from the latest record of each curve.
+    """
     parts = [PartRecord(*r) for r in conn.execute(
         "SELECT part_id, description, nominal_C_F, tolerance, rated_V, class_code, case_code, supplier "
         "FROM part ORDER BY part_id")]
     index = {p.part_id: i for i, p in enumerate(parts)}
-
-    def part_index(text: str, n: int) -> np.ndarray:
-        # part ids hold no control characters (records.check_part_id): char(31) separates them
-        ids = text.split("\x1f")
-        if len(ids) != n:  # pragma: no cover - a damaged file
-            raise UserError("library table: row count mismatch while loading; the file may be damaged")
-        return np.array([index[x] for x in ids], dtype=np.int64)
-
+    retired = {int(r[0]) for r in conn.execute(
+        "SELECT o.id FROM curve n JOIN curve o ON o.content_sha256 = n.supersedes_sha256 "
+        "WHERE n.supersedes_sha256 IS NOT NULL")}
     chunks: dict[str, list[np.ndarray]] = {k: [] for k in
                                            ("id", "part", "origin", "branch", "temp", "lo", "hi")}
     groups: list[ModelGroup] = []
+    loose_rows: list[tuple[int, int]] = []  # (row, curve id)
     start = 0
-    variants = conn.execute(
-        "SELECT DISTINCT model, param_names FROM curve ORDER BY model, param_names"
-    ).fetchall()
-    for model, names in variants:
-        pnames = tuple(json.loads(names))
-        k = len(pnames)
-        nan_cov = np.full(k * k, np.nan).astype("<f8").tobytes()
-        (n, ids, pids, nhex, phex, chex) = conn.execute(_GROUP_SQL, (nan_cov, model, names)).fetchone()
+    for seg in pack.load(conn):
+        keep = np.ones(seg.n, dtype=bool)
+        if retired:
+            keep = ~np.isin(seg.ids, np.fromiter(retired, dtype=np.int64))
+        ids = seg.ids[keep]
+        n = int(ids.size)
         if n == 0:
             continue
-        numbers = np.frombuffer(bytes.fromhex(nhex), dtype="<f8").reshape(n, N_NUMBERS).astype(float)
-        chunks["id"].append(_ints(ids, n))
-        chunks["part"].append(part_index(pids, n))
+        numbers = seg.numbers[keep]
+        pids = seg.part_ids if keep.all() else [p for p, k in zip(seg.part_ids, keep.tolist()) if k]
+        chunks["id"].append(ids)
+        chunks["part"].append(np.fromiter((index[x] for x in pids), dtype=np.int64, count=n))
         chunks["lo"].append(numbers[:, 0])
         chunks["hi"].append(numbers[:, 1])
         chunks["temp"].append(numbers[:, 2])
@@ -180,24 +157,20 @@ def load_table(conn, generation: int) -> CurveTable:
         chunks["branch"].append(numbers[:, 4].astype(np.int64))
         rows = np.arange(start, start + n, dtype=np.int64)
         start += n
+        if seg.loose:
+            loose_rows.extend(zip(rows.tolist(), ids.tolist()))
+            continue
         try:
-            spec = fitsbridge.model_spec(model, pnames)
+            spec = fitsbridge.model_spec(seg.model, seg.param_names)
         except UserError:
             continue  # a model this benchkit does not know: its curves stay NaN (not covered)
-        P = np.frombuffer(bytes.fromhex(phex), dtype="<f8").reshape(n, k).astype(float)
-        cov = np.frombuffer(bytes.fromhex(chex), dtype="<f8").reshape(n, k, k).astype(float)
-        groups.append(ModelGroup(model, pnames, spec, rows, P, cov))
+        groups.append(ModelGroup(seg.model, seg.param_names, spec, rows, seg.params[keep], seg.covariance[keep]))
     # curves whose parameters are not plain numbers: evaluated one by one through fits.Curve
-    rank = {o: i for i, o in enumerate(schema.ORIGINS)}
     loose = []
-    for cid, pid, origin, br, t, lo, hi, doc in conn.execute(
-            "SELECT c.id, c.part_id, c.origin, c.branch, c.temp_C, c.valid_lo_V, c.valid_hi_V, d.document "
-            "FROM curve c JOIN curve_doc d ON d.curve_id = c.id WHERE c.params_f64 IS NULL ORDER BY c.id"):
-        for key, value in (("id", cid), ("part", index[pid]), ("origin", rank[origin]),
-                           ("branch", branch_code(br)), ("temp", t), ("lo", lo), ("hi", hi)):
-            chunks[key].append(np.array([value]))
-        loose.append((start, doc))
-        start += 1
+    if loose_rows:
+        docs = dict(conn.execute("SELECT curve_id, document FROM curve_doc WHERE curve_id IN "
+                                 f"({', '.join('?' for _ in loose_rows)})", tuple(c for _, c in loose_rows)))
+        loose = [(row, docs[cid]) for row, cid in loose_rows]
 
     def cat(key, dtype):
         return np.concatenate(chunks[key]).astype(dtype) if chunks[key] else np.zeros(0, dtype=dtype)

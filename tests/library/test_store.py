@@ -154,11 +154,12 @@ def test_migrations_run_in_order_once_and_atomically(tmp_path, monkeypatch):
         calls.append("v2")
         conn.execute("CREATE TABLE note (text TEXT)")
 
+    before = latest_version()
     monkeypatch.setattr(schema, "MIGRATIONS", schema.MIGRATIONS + [v2])
     Library(path).close()
-    Library(path).close()  # already at v2: not run again
+    Library(path).close()  # already at the new version: not run again
     conn = sqlite3.connect(path)
-    assert conn.execute("PRAGMA user_version").fetchone()[0] == latest_version() == 2
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == latest_version() == before + 1
     conn.close()
     assert calls == ["v2"]
 
@@ -170,7 +171,7 @@ def test_migrations_run_in_order_once_and_atomically(tmp_path, monkeypatch):
     with pytest.raises(RuntimeError):
         Library(path)
     conn = sqlite3.connect(path)
-    assert conn.execute("PRAGMA user_version").fetchone()[0] == 2  # rolled back whole
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == before + 1  # rolled back whole
     assert conn.execute("SELECT 1 FROM sqlite_master WHERE name = 'half'").fetchone() is None
     conn.close()
 
@@ -202,7 +203,7 @@ def test_remove_curve_and_part(lib, mk):
     lib.remove_curve(a)
     assert [r.curve_id for r in lib.curves("BD-1001")] == [b]
     assert lib.remove_part("BD-1001") == 1
-    assert lib.summary() == {"part": 2, "sample": 0, "run": 0, "curve": 0}
+    assert lib.summary() == {"part": 2, "sample": 0, "run": 0, "curve": 0, "verdict": 0}
     with pytest.raises(UserError):
         lib.remove_curve(a)
 
