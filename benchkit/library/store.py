@@ -163,6 +163,8 @@ class Library:
         self.path = self._db.path  # None for an in-memory or a PostgreSQL library
         self.where = self._db.where
         self.created = bool(getattr(self._db, "created", False))  # this open made a new file
+        # what reopens this library (a path or the URL as given, password included: never printed)
+        self.target = str(path) if schema.is_url(path) else (str(self.path) if self.path else str(path))
         self._table = None  # cached query arrays (benchkit.library.query.CurveTable)
 
     # -- life cycle ---------------------------------------------------------------------------
@@ -557,7 +559,8 @@ class Library:
             if row is not None:
                 return int(row[0]), False
             vid = conn.execute(f"INSERT INTO verdict({_VERDICT_COLUMNS}) VALUES (?, ?, ?, ?, ?, ?) RETURNING id",
-                               (sha, pid, str(doc.get("verdict") or "?"), doc.get("rule"), text, _utc())).fetchone()[0]
+                               (sha, pid, str(doc.get("verdict") or "?"),
+                                doc.get("rule") or (doc.get("decision_rule") or {}).get("rule"), text, _utc())).fetchone()[0]
         return int(vid), True
 
     def verdicts(self, part_id: str) -> list[dict[str, Any]]:
