@@ -589,7 +589,8 @@ class Library:
         curves below and above temp_C, and a temperature outside what the part's curves span is
         not covered; several curves at one temperature are pooled (mean C, u combining the fit
         variance and the spread); origins are not mixed (lot summary, then measured, then
-        supplier claim). Options: min_C_F, case, class_code, branch, origin, temp_tol_C, limit.
+        supplier claim). Options: min_C_F, case, class_code, min_rated_V, nominal_C_F, branch,
+        origin, temp_tol_C, limit.
         Full text: benchkit.library.query.
         """
         from benchkit.library.query import run_query

@@ -36,29 +36,32 @@ class ModelGroup:
     P: np.ndarray
     cov: np.ndarray
 
-    def evaluate(self, V: float) -> tuple[np.ndarray, np.ndarray]:
-        """C and its standard uncertainty u_C = sqrt(J Sigma J^T) for every curve of the group at V.
+    def evaluate(self, V: float, sel: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """C and its standard uncertainty u_C = sqrt(J Sigma J^T) for the group's curves at V
+        (those where sel is True, when given).
 
         J = dC/dp by central differences over the whole stack at once; the step follows
         fits.models.base.ModelSpec.jacobian (1e-6 of the parameter, or of the typical size of
         its kind when it is 0), so the answer matches Curve.u_C to the differencing error.
         """
         names = self.param_names
-        cols = {n: self.P[:, j] for j, n in enumerate(names)}
-        nrow = self.P.shape[0]
+        P_all = self.P if sel is None else self.P[sel]
+        cov_all = self.cov if sel is None else self.cov[sel]
+        cols = {n: P_all[:, j] for j, n in enumerate(names)}
+        nrow = P_all.shape[0]
         with np.errstate(all="ignore"):
             C = np.broadcast_to(np.asarray(self.spec.C(V, **cols), dtype=float), (nrow,))
-            diag = np.diagonal(self.cov, axis1=1, axis2=2)
+            diag = np.diagonal(cov_all, axis1=1, axis2=2)
             # parameters held fixed in every fit (variance 0, e.g. poly V_scale_V, table knots)
             # contribute nothing: skip their derivative (saves model calls).
             active = [j for j in range(len(names)) if np.any(np.nan_to_num(diag[:, j]) != 0.0)]
             cap = [j for j, n in enumerate(names) if n.endswith("_F")]
-            cap_size = np.max(np.abs(self.P[:, cap]), axis=1) if cap else np.ones(nrow)
+            cap_size = np.max(np.abs(P_all[:, cap]), axis=1) if cap else np.ones(nrow)
             cap_size = np.maximum(cap_size, 1e-30)
             J = np.zeros((nrow, len(active)))
             for col, j in enumerate(active):
                 n = names[j]
-                p = self.P[:, j]
+                p = P_all[:, j]
                 typical = cap_size if n.endswith("_F") else 1.0
                 h = 1e-6 * np.where(p != 0.0, np.abs(p), typical)
                 up = dict(cols)
@@ -66,10 +69,10 @@ class ModelGroup:
                 dn = dict(cols)
                 dn[n] = p - h
                 J[:, col] = (np.asarray(self.spec.C(V, **up)) - np.asarray(self.spec.C(V, **dn))) / (2.0 * h)
-            sub = self.cov[:, active][:, :, active]
+            sub = cov_all[:, active][:, :, active]
             var = np.einsum("ni,nij,nj->n", J, sub, J)
             u = np.sqrt(np.clip(var, 0.0, None))
-            u[np.any(np.isnan(self.cov.reshape(nrow, -1)), axis=1)] = np.nan  # no covariance stored
+            u[np.any(np.isnan(cov_all.reshape(nrow, -1)), axis=1)] = np.nan  # no covariance stored
         return C, u
 
 
@@ -94,15 +97,26 @@ class CurveTable:
     def n(self) -> int:
         return int(self.curve_id.size)
 
-    def evaluate(self, V: float) -> tuple[np.ndarray, np.ndarray]:
-        """C_F and u_C_F of every curve at V (NaN where a curve cannot say: outside its range, unknown model)."""
+    def evaluate(self, V: float, need: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """C_F and u_C_F of every curve at V, or of the rows where `need` is True (NaN where a
+        curve cannot say or was not asked: outside its range, unknown model)."""
         C = np.full(self.n, np.nan)
         u = np.full(self.n, np.nan)
         for g in self.groups:
-            c, uu = g.evaluate(V)
-            C[g.rows] = c
-            u[g.rows] = uu
+            if need is None:
+                c, uu = g.evaluate(V)
+                C[g.rows] = c
+                u[g.rows] = uu
+                continue
+            sel = need[g.rows]
+            if not sel.any():
+                continue
+            c, uu = g.evaluate(V, sel)
+            C[g.rows[sel]] = c
+            u[g.rows[sel]] = uu
         for row, doc in self.loose:
+            if need is not None and not need[row]:
+                continue
             if not (self.lo_V[row] <= V <= self.hi_V[row]):
                 continue
             curve = self._loose_curves.get(row)
@@ -120,6 +134,16 @@ class CurveTable:
         return C, u
 
 
+def _part_index(pids: list[str], sorted_ids: np.ndarray, index: dict) -> np.ndarray:
+    """Row -> part number, by binary search over the sorted part ids (numpy, not a Python loop)."""
+    arr = np.array(pids)
+    pos = np.searchsorted(sorted_ids, arr)
+    pos = np.minimum(pos, max(len(sorted_ids) - 1, 0))
+    if len(sorted_ids) and np.array_equal(sorted_ids[pos], arr):
+        return pos.astype(np.int64)
+    return np.fromiter((index[x] for x in pids), dtype=np.int64, count=len(pids))  # raises on a stray id
+
+
 def load_table(conn, generation: int) -> CurveTable:
     """Read parts and the packed curves (inside one read snapshot) into arrays (pack.py).
 
@@ -129,7 +153,9 @@ def load_table(conn, generation: int) -> CurveTable:
     parts = [PartRecord(*r) for r in conn.execute(
         "SELECT part_id, description, nominal_C_F, tolerance, rated_V, class_code, case_code, supplier "
         "FROM part ORDER BY part_id")]
+    parts.sort(key=lambda p: p.part_id)  # code-point order, whatever the server's collation
     index = {p.part_id: i for i, p in enumerate(parts)}
+    sorted_ids = np.array([p.part_id for p in parts]) if parts else np.zeros(0, dtype="U1")
     retired = {int(r[0]) for r in conn.execute(
         "SELECT o.id FROM curve n JOIN curve o ON o.content_sha256 = n.supersedes_sha256 "
         "WHERE n.supersedes_sha256 IS NOT NULL")}
@@ -149,7 +175,7 @@ def load_table(conn, generation: int) -> CurveTable:
         numbers = seg.numbers[keep]
         pids = seg.part_ids if keep.all() else [p for p, k in zip(seg.part_ids, keep.tolist()) if k]
         chunks["id"].append(ids)
-        chunks["part"].append(np.fromiter((index[x] for x in pids), dtype=np.int64, count=n))
+        chunks["part"].append(_part_index(pids, sorted_ids, index))
         chunks["lo"].append(numbers[:, 0])
         chunks["hi"].append(numbers[:, 1])
         chunks["temp"].append(numbers[:, 2])
