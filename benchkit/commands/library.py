@@ -179,7 +179,7 @@ def _add(args) -> int:
             if args.all_parts:
                 from benchkit.library.ingest import parts_in_run
 
-                from benchkit import runlog
+                from benchkit.sweep import runlog
                 from benchkit.library.ingest import run_catalogue
 
                 part_ids = parts_in_run(src)
