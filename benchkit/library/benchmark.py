@@ -129,7 +129,7 @@ def _empty_postgres(url: str) -> None:
     import psycopg
 
     with psycopg.connect(url, autocommit=True) as conn:
-        for t in ("curve_pack", "verdict", "curve_doc", "curve", "sample", "run", "part", "meta"):
+        for t in ("curve_pack", "revision", "verdict", "curve_doc", "curve", "sample", "run", "part", "meta"):
             conn.execute(f"DROP TABLE IF EXISTS {t} CASCADE")  # constant names
 
 

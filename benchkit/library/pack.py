@@ -108,8 +108,9 @@ def rebuild(conn) -> None:
 def load(conn) -> list[Segment]:
     """Every segment, those of one variant joined (inside the caller's read snapshot)."""
     by_key: dict[tuple, list] = defaultdict(list)
-    for row in conn.execute("SELECT model, param_names, loose, n, ids, part_ids, numbers, params, covariance "
-                            "FROM curve_pack ORDER BY id"):
+    run = getattr(conn, "execute_binary", conn.execute)  # PostgreSQL: blobs as bytes, not hex text
+    for row in run("SELECT model, param_names, loose, n, ids, part_ids, numbers, params, covariance "
+                   "FROM curve_pack ORDER BY id").fetchall():
         by_key[(row[0], row[1], int(row[2]))].append(row[3:])
     out = []
     for (model, names, loose), segs in sorted(by_key.items()):

@@ -134,16 +134,18 @@ def _v2(conn: sqlite3.Connection) -> None:
     """Records with a history, verdicts, and the query's column store.
 
     - part.updated_utc: when the catalogue fields last changed (a merge keeps the later ones);
-    - curve.supersedes_sha256: a curve is never edited; a revision is a new record naming the
-      content hash of the one it replaces (the query answers from the latest);
+    - revision: a curve is never edited; a revision is a new record, and this small table names
+      the content hash it replaces (the query answers from the latest);
     - verdict: verification reports (their JSON document), identified by content hash;
     - curve_pack: the query's packed arrays (pack.py), filled here from the curves held.
     """
     for statement in (
         "ALTER TABLE part ADD COLUMN updated_utc TEXT NOT NULL DEFAULT ''",
         "UPDATE part SET updated_utc = added_utc",
-        "ALTER TABLE curve ADD COLUMN supersedes_sha256 TEXT",
-        "CREATE INDEX curve_by_supersedes ON curve(supersedes_sha256) WHERE supersedes_sha256 IS NOT NULL",
+"""CREATE TABLE revision (
+            new_sha256 TEXT PRIMARY KEY,
+            old_sha256 TEXT NOT NULL
+        )""",
         """CREATE TABLE verdict (
             id             INTEGER PRIMARY KEY,
             content_sha256 TEXT NOT NULL UNIQUE,

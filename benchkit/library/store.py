@@ -9,7 +9,8 @@ parameterised; part ids and sample ids are stored and matched literally, whateve
 
 Identity: a run is its points.csv sha256, a curve or a verdict the sha256 of its canonical
 JSON document. Adding or merging the same thing twice, from any site in any order, stores it
-once. Records are not edited: a revised curve is a new record naming the one it supersedes.
+once. Records are not edited: a revised curve is a new record, the table `revision` names the one it
+supersedes.
 """
 
 from __future__ import annotations
@@ -332,19 +333,20 @@ class Library:
 
     _CURVE_COLUMNS = ("content_sha256", "part_id", "sample_ref", "run_ref", "origin", "model", "param_names",
                       "params_f64", "covariance_f64", "valid_lo_V", "valid_hi_V", "temp_C", "numbers_f64",
-                      "freq_Hz", "ac_level_Vrms", "function", "branch", "sample_id", "esr_ohm", "added_utc",
-                      "supersedes_sha256")
+                      "freq_Hz", "ac_level_Vrms", "function", "branch", "sample_id", "esr_ohm", "added_utc")
     _CURVE_INSERT = (f"INSERT INTO curve({', '.join(_CURVE_COLUMNS)}) "
                      f"VALUES ({', '.join('?' for _ in _CURVE_COLUMNS)}) RETURNING id")
 
     def _insert_curve(self, conn, pid, doc, cols, esr, run_ref, packed, supersedes=None) -> tuple[int, bool]:
         text = fitsbridge.canonical_json(doc)
         sha = hashlib.sha256(text.encode("utf-8")).hexdigest()  # identity: the canonical document
+        if supersedes is not None and supersedes != sha:
+            conn.execute("INSERT OR IGNORE INTO revision(new_sha256, old_sha256) VALUES (?, ?)", (sha, supersedes))
         row = conn.execute("SELECT id FROM curve WHERE content_sha256 = ?", (sha,)).fetchone()
         if row is not None:
             return int(row[0]), False
         values = dict(cols, content_sha256=sha, part_id=pid, sample_ref=self._sample_ref(conn, pid, cols["sample_id"]),
-                      run_ref=run_ref, esr_ohm=esr, added_utc=_utc(), supersedes_sha256=supersedes)
+                      run_ref=run_ref, esr_ohm=esr, added_utc=_utc())
         return self._insert_values(conn, values, text, packed), True
 
     def _insert_values(self, conn, values: dict[str, Any], document: str, packed: list[dict]) -> int:
@@ -359,15 +361,26 @@ class Library:
         Skips the fits validation of each document; everything else (columns, canonical
         text, identity hash) is as add_curves stores it. No samples, no runs.
         """
+        rows = []
+        for doc in docs:
+            cols = curve_columns(doc, "synthetic curve")
+            text = fitsbridge.canonical_json(doc)
+            rows.append((dict(cols, content_sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(),
+                              part_id=doc["part_id"], sample_ref=None, run_ref=None, esr_ohm=None,
+                              added_utc=_utc()), text))
         packed: list[dict] = []
+        cols_sql = ", ".join(self._CURVE_COLUMNS)
+        one = f"({', '.join('?' for _ in self._CURVE_COLUMNS)})"
         with self._db.write() as conn:
-            for doc in docs:
-                cols = curve_columns(doc, "synthetic curve")
-                text = fitsbridge.canonical_json(doc)
-                values = dict(cols, content_sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(),
-                              part_id=doc["part_id"], sample_ref=None, run_ref=None, esr_ohm=None, added_utc=_utc(),
-                              supersedes_sha256=None)
-                self._insert_values(conn, values, text, packed)
+            for i in range(0, len(rows), 400):  # multi-row statements: one round trip per 400 curves
+                chunk = rows[i:i + 400]
+                args = [v[c] for v, _ in chunk for c in self._CURVE_COLUMNS]
+                got = conn.execute(f"INSERT INTO curve({cols_sql}) VALUES {', '.join(one for _ in chunk)} "
+                                   f"RETURNING id, content_sha256", args).fetchall()
+                ids = {sha: int(cid) for cid, sha in got}
+                conn.execute(f"INSERT INTO curve_doc(curve_id, document) VALUES {', '.join('(?, ?)' for _ in chunk)}",
+                             [x for v, text in chunk for x in (ids[v["content_sha256"]], text)])
+                packed.extend(dict(v, id=ids[v["content_sha256"]]) for v, _ in chunk)
             pack.append(conn, packed)
 
     def curves(self, part_id: str | None = None) -> list[CurveRecord]:
@@ -447,6 +460,7 @@ class Library:
                 curves = list(s.execute(f"SELECT {cols}, d.document FROM curve c "
                                         f"JOIN curve_doc d ON d.curve_id = c.id ORDER BY c.id"))
                 verdicts = list(s.execute(f"SELECT {_VERDICT_COLUMNS} FROM verdict ORDER BY id"))
+                revisions = list(s.execute("SELECT new_sha256, old_sha256 FROM revision"))
         finally:
             src.close()
         for row in parts:
@@ -486,6 +500,8 @@ class Library:
                 values["run_ref"] = run_map.get(values["run_ref"])
                 self._insert_values(conn, values, row[-1], packed)
                 summary.curves_added += 1
+            for new_sha, old_sha in revisions:
+                conn.execute("INSERT OR IGNORE INTO revision(new_sha256, old_sha256) VALUES (?, ?)", (new_sha, old_sha))
             for row in verdicts:
                 cur = conn.execute(f"INSERT OR IGNORE INTO verdict({_VERDICT_COLUMNS}) "
                                    f"VALUES (?, ?, ?, ?, ?, ?)", tuple(row))
@@ -505,7 +521,9 @@ class Library:
                 h.update(json.dumps(["part", *row]).encode())
             for row in conn.execute("SELECT points_sha256, run_id, status FROM run ORDER BY points_sha256"):
                 h.update(json.dumps(["run", *row]).encode())
-            for row in conn.execute("SELECT c.content_sha256, c.part_id, c.esr_ohm, c.supersedes_sha256, "
+            for row in conn.execute("SELECT new_sha256, old_sha256 FROM revision ORDER BY new_sha256"):
+                h.update(json.dumps(["revision", *row]).encode())
+            for row in conn.execute("SELECT c.content_sha256, c.part_id, c.esr_ohm, "
                                     "r.points_sha256 FROM curve c LEFT JOIN run r ON r.id = c.run_ref "
                                     "ORDER BY c.content_sha256"):
                 h.update(json.dumps(["curve", *row]).encode())
@@ -527,8 +545,8 @@ class Library:
         out = [self.curve(curve_id)]
         seen = {out[0].content_sha256}
         while True:
-            row = self._db.conn.execute("SELECT supersedes_sha256 FROM curve WHERE id = ?",
-                                        (out[-1].curve_id,)).fetchone()
+            row = self._db.conn.execute("SELECT old_sha256 FROM revision WHERE new_sha256 = ?",
+                                        (out[-1].content_sha256,)).fetchone()
             if not row or row[0] is None or row[0] in seen:
                 return out
             prev = self._db.conn.execute(_CURVE_SELECT + " WHERE c.content_sha256 = ?", (row[0],)).fetchone()
@@ -539,8 +557,7 @@ class Library:
 
     def superseded_ids(self) -> set[int]:
         return {int(r[0]) for r in self._db.conn.execute(
-            "SELECT o.id FROM curve n JOIN curve o ON o.content_sha256 = n.supersedes_sha256 "
-            "WHERE n.supersedes_sha256 IS NOT NULL")}
+            "SELECT c.id FROM revision r JOIN curve c ON c.content_sha256 = r.old_sha256")}
 
     # -- verdicts -----------------------------------------------------------------------------
     def add_verdict(self, doc: dict[str, Any], where: str = "verdict") -> tuple[int, bool]:

@@ -152,13 +152,12 @@ def load_table(conn, generation: int) -> CurveTable:
     """
     parts = [PartRecord(*r) for r in conn.execute(
         "SELECT part_id, description, nominal_C_F, tolerance, rated_V, class_code, case_code, supplier "
-        "FROM part ORDER BY part_id")]
+        "FROM part ORDER BY part_id").fetchall()]
     parts.sort(key=lambda p: p.part_id)  # code-point order, whatever the server's collation
     index = {p.part_id: i for i, p in enumerate(parts)}
     sorted_ids = np.array([p.part_id for p in parts]) if parts else np.zeros(0, dtype="U1")
     retired = {int(r[0]) for r in conn.execute(
-        "SELECT o.id FROM curve n JOIN curve o ON o.content_sha256 = n.supersedes_sha256 "
-        "WHERE n.supersedes_sha256 IS NOT NULL")}
+        "SELECT c.id FROM revision r JOIN curve c ON c.content_sha256 = r.old_sha256")}
     chunks: dict[str, list[np.ndarray]] = {k: [] for k in
                                            ("id", "part", "origin", "branch", "temp", "lo", "hi")}
     groups: list[ModelGroup] = []
