@@ -53,7 +53,7 @@ def part_png(part: PartRecord, records: list[CurveRecord], retired: set[int] = f
         style = "--" if rec.origin == "supplier claim" else "-"
         (line,) = ax.plot(V, C * 1e6, style, lw=1.4,
                           label=f"#{rec.curve_id} {rec.origin}, {rec.sample_id or '-'} {rec.branch or ''}, "
-                                f"{rec.temp_C:g} degC")
+                                f"{rec.temp_C:.1f} degC")
         u = _band(curve, V)
         if u is not None:
             ax.fill_between(V, (C - 2 * u) * 1e6, (C + 2 * u) * 1e6, color=line.get_color(), alpha=0.15, lw=0)

@@ -161,3 +161,12 @@ def chromium(tmp_path_factory):
         yield driver
     finally:
         driver.quit()
+
+
+@pytest.fixture(scope="session")
+def demo_site(demo_library):
+    """The demo library served read-only on a loopback port, as `benchkit serve` serves it."""
+    from benchkit.web import create_app
+
+    with LiveServer(create_app(str(demo_library))) as server:
+        yield server

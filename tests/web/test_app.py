@@ -156,3 +156,15 @@ def test_json_api_query(small_library):
     client = TestClient(create_app(small_library))
     out = client.get("/api/query", params={"bias": "5"}).json()
     assert [r["part_id"] for r in out if r["covered"]] == _truth_ranking(small_library, 5.0)
+
+
+def test_no_process_wide_backend_switch():
+    # Matplotlib's Agg canvas is chosen per figure (FigureCanvasAgg); matplotlib.use() in library
+    # code would change the backend of every program importing it (team rule: common practice)
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2]
+    offenders = [str(p.relative_to(root)) for d in ("benchkit", "fits") for p in (root / d).rglob("*.py")
+                 if re.search(r"^\s*(matplotlib\.use\(|import matplotlib\.pyplot|from matplotlib import pyplot)",
+                              p.read_text(encoding="utf-8"), re.MULTILINE)]
+    assert offenders == []
