@@ -70,6 +70,10 @@ class RunInfo:
 
 
 _VERDICT_COLUMNS = "content_sha256, part_id, verdict, rule, document, added_utc"
+_BULK_ROWS = 400  # curves per statement of the benchmark's bulk insert
+_BULK_RANGE = range(_BULK_ROWS)
+_ONE_ROW = "(" + ", ".join("?" for _ in range(20)) + ")"  # one row of Library._CURVE_COLUMNS
+_BULK_DOC_INSERT = f"INSERT INTO curve_doc(curve_id, document) VALUES {', '.join('(?, ?)' for _ in _BULK_RANGE)}"
 
 
 def _part_rank(row: tuple) -> tuple:
@@ -336,6 +340,9 @@ class Library:
                       "freq_Hz", "ac_level_Vrms", "function", "branch", "sample_id", "esr_ohm", "added_utc")
     _CURVE_INSERT = (f"INSERT INTO curve({', '.join(_CURVE_COLUMNS)}) "
                      f"VALUES ({', '.join('?' for _ in _CURVE_COLUMNS)}) RETURNING id")
+    assert len(_CURVE_COLUMNS) == 20  # _ONE_ROW
+    _BULK_INSERT = (f"INSERT INTO curve({', '.join(_CURVE_COLUMNS)}) VALUES "
+                    f"{', '.join(_ONE_ROW for _ in _BULK_RANGE)} RETURNING id, content_sha256")
 
     def _insert_curve(self, conn, pid, doc, cols, esr, run_ref, packed, supersedes=None) -> tuple[int, bool]:
         text = fitsbridge.canonical_json(doc)
@@ -369,18 +376,16 @@ class Library:
                               part_id=doc["part_id"], sample_ref=None, run_ref=None, esr_ohm=None,
                               added_utc=_utc()), text))
         packed: list[dict] = []
-        cols_sql = ", ".join(self._CURVE_COLUMNS)
-        one = f"({', '.join('?' for _ in self._CURVE_COLUMNS)})"
+        n_bulk = len(rows) - len(rows) % _BULK_ROWS
         with self._db.write() as conn:
-            for i in range(0, len(rows), 400):  # multi-row statements: one round trip per 400 curves
-                chunk = rows[i:i + 400]
-                args = [v[c] for v, _ in chunk for c in self._CURVE_COLUMNS]
-                got = conn.execute(f"INSERT INTO curve({cols_sql}) VALUES {', '.join(one for _ in chunk)} "
-                                   f"RETURNING id, content_sha256", args).fetchall()
+            for i in range(0, n_bulk, _BULK_ROWS):  # multi-row statements: one round trip per _BULK_ROWS
+                chunk = rows[i:i + _BULK_ROWS]
+                got = conn.execute(self._BULK_INSERT, [v[c] for v, _ in chunk for c in self._CURVE_COLUMNS]).fetchall()
                 ids = {sha: int(cid) for cid, sha in got}
-                conn.execute(f"INSERT INTO curve_doc(curve_id, document) VALUES {', '.join('(?, ?)' for _ in chunk)}",
-                             [x for v, text in chunk for x in (ids[v["content_sha256"]], text)])
+                conn.execute(_BULK_DOC_INSERT, [x for v, text in chunk for x in (ids[v["content_sha256"]], text)])
                 packed.extend(dict(v, id=ids[v["content_sha256"]]) for v, _ in chunk)
+            for values, text in rows[n_bulk:]:
+                self._insert_values(conn, values, text, packed)
             pack.append(conn, packed)
 
     def curves(self, part_id: str | None = None) -> list[CurveRecord]:

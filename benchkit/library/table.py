@@ -193,9 +193,8 @@ def load_table(conn, generation: int) -> CurveTable:
     # curves whose parameters are not plain numbers: evaluated one by one through fits.Curve
     loose = []
     if loose_rows:
-        docs = dict(conn.execute("SELECT curve_id, document FROM curve_doc WHERE curve_id IN "
-                                 f"({', '.join('?' for _ in loose_rows)})", tuple(c for _, c in loose_rows)))
-        loose = [(row, docs[cid]) for row, cid in loose_rows]
+        loose = [(row, conn.execute("SELECT document FROM curve_doc WHERE curve_id = ?", (cid,)).fetchone()[0])
+                 for row, cid in loose_rows]
 
     def cat(key, dtype):
         return np.concatenate(chunks[key]).astype(dtype) if chunks[key] else np.zeros(0, dtype=dtype)
