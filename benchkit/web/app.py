@@ -26,7 +26,7 @@ from benchkit.web.templating import render
 
 MAX_BODY_BYTES = 4_000_000
 MAX_COMPARE = 8
-MEDIA = {"csv": "text/csv", "json": "application/json", "spice": "text/plain"}
+MEDIA = {"csv": "text/csv", "json": "application/json"}  # every other export: text/plain
 
 
 class _Shared:
@@ -107,8 +107,10 @@ def create_app(target, *, token: str | None = None) -> Starlette:
         curves = lib.curves(rec.part_id)
         retired = lib.superseded_ids()
         verdicts = lib.verdicts(rec.part_id)
+        bias = _value(request, "bias", "V", 5.0)
+        wideband = {c.curve_id for c in curves if getattr(c.curve, "wideband", None) is not None}
         return _page("part.html", title=rec.part_id, part=rec, curves=curves, retired=retired,
-                     verdicts=verdicts, formats=FORMATS)
+                     verdicts=verdicts, formats=FORMATS, bias_V=bias, wideband=wideband)
 
     def compare(request: Request, lib):
         ids = [p for p in request.query_params.getlist("part") if p][:MAX_COMPARE]
@@ -150,7 +152,8 @@ def create_app(target, *, token: str | None = None) -> Starlette:
         except ValueError:
             raise UserError("download: curve must be a curve number") from None
         rec = lib.curve(cid)
-        text = render_export(rec.curve, fmt, esr_ohm=rec.esr_ohm, name=rec.part_id,
+        bias = _value(request, "bias", "V", None)  # a wideband export describes the part at one bias
+        text = render_export(rec.curve, fmt, esr_ohm=rec.esr_ohm, name=rec.part_id, bias_V=bias,
                              source_note=f"benchkit library curve {rec.curve_id}")
         name = f"{safe_stem(rec.part_id)}_c{rec.curve_id}{SUFFIX[fmt]}"
         return Response(text, media_type=MEDIA.get(fmt, "text/plain"),
