@@ -20,7 +20,7 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) -m pip install --quiet -e '.[test,bench]'
-	$(PY) -m benchkit.benchmarks --out out/bench
+	.ci/with-postgres $(PY) -m benchkit.benchmarks --out out/bench
 
 clean:
 	rm -rf out .pytest_cache

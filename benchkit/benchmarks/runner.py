@@ -61,10 +61,15 @@ def _library(out_dir, quick, parts, log):
     except ImportError as exc:
         raise RuntimeError(f"benchkit.library.benchmark_query is not there ({exc})") from None
     n = QUICK_CURVES if quick else FULL_CURVES
-    res = benchmark_query(n)
-    log(f"library query over {n} curves: {res.get('query_warm_s', float('nan')) * 1e3:.1f} ms warm, "
-        f"{res.get('query_cold_s', float('nan')) * 1e3:.1f} ms cold; per-curve loop "
-        f"{res.get('loop_s', float('nan')):.2f} s")
+    url = os.environ.get("BENCHKIT_BENCH_POSTGRES")  # a throwaway server (`make bench` starts one)
+    if not url:
+        log("library query: BENCHKIT_BENCH_POSTGRES not set, PostgreSQL not measured")
+    res = benchmark_query(n, postgres_url=url)
+    for name in res["backends"]:
+        r = res[name]
+        log(f"library query over {n} curves on {name}: {r['query_warm_s'] * 1e3:.1f} ms warm, "
+            f"{r['query_cold_s'] * 1e3:.1f} ms cold (build {r['build_s']:.1f} s)")
+    log(f"per-curve loop {res.get('loop_s', float('nan')):.2f} s")
     return dict(res, what="vectorised library query against a per-curve Python loop "
                           "(benchkit.library.benchmark_query)")
 

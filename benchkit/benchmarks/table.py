@@ -110,10 +110,16 @@ def format_table(results: dict) -> str:
         if "error" in lq:
             lines.append(f"  FAILED: {lq['error']}")
         else:
-            lines.append(f"  {lq['n_curves']} curves ({lq['n_parts']} parts): query "
-                         f"{lq['query_warm_s'] * 1e3:.1f} ms warm, {lq['query_cold_s'] * 1e3:.1f} ms cold; "
-                         f"per-curve loop {lq['loop_s']:.2f} s ({lq['loop_over_query']:.0f}x the warm query); "
-                         f"build {lq['build_s']:.1f} s")
+            lines.append(f"  {lq['n_curves']} curves ({lq['n_parts']} parts) at {lq['bias_V']:g} V, "
+                         f"{lq['temp_C']:g} degC; target 200 ms cold and warm")
+            for name in lq.get("backends", []):
+                r = lq[name]
+                lines.append(f"  {name:10} {r['query_warm_s'] * 1e3:7.1f} ms warm {r['query_cold_s'] * 1e3:7.1f} ms "
+                             f"cold (worst of 3 fresh opens); build {r['build_s']:.1f} s")
+            if "postgresql" not in lq.get("backends", []):
+                lines.append("  postgresql not measured (BENCHKIT_BENCH_POSTGRES not set)")
+            lines.append(f"  per-curve loop {lq['loop_s']:.2f} s ({lq['loop_over_query']:.0f}x the warm "
+                         f"SQLite query); same answer on every backend: {lq['same_answer_on_both']}")
         lines.append("")
     sk = b.get("soak")
     if sk is not None:

@@ -4,4 +4,4 @@ The CLI imports the modules listed in COMMANDS, in this order (the order of `ben
 Heavy imports (numpy, scipy, lmfit, pyvisa) belong inside `run`, so the CLI starts quickly.
 """
 
-COMMANDS = ("sim", "measure", "fit", "library", "export", "verify", "classcheck", "budget", "lot")
+COMMANDS = ("sim", "measure", "fit", "library", "export", "verify", "classcheck", "budget", "lot", "serve")

@@ -4,13 +4,15 @@ from __future__ import annotations
 
 import argparse
 import json
+from contextlib import contextmanager
 from pathlib import Path
 
 from benchkit.errors import UserError
 from benchkit.units import arg_type, format_value
 
 LIBRARY_HELP = (
-    "library file (SQLite); default $BENCHKIT_LIBRARY, else ~/.local/share/benchkit/library.sqlite "
+    "library: an SQLite file, or a PostgreSQL server as postgresql://USER@HOST:PORT/DB; default "
+    "$BENCHKIT_LIBRARY, else ~/.local/share/benchkit/library.sqlite "
     "($XDG_DATA_HOME/benchkit/library.sqlite when XDG_DATA_HOME is set)"
 )
 
@@ -34,10 +36,10 @@ def register(subparsers) -> None:
                     "that several benches may write at once.",
         epilog=f"The {LIBRARY_HELP}. Several processes may write one file at once.",
         formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("--library", metavar="FILE", default=None, help=LIBRARY_HELP)
+    p.add_argument("--library", metavar="FILE|URL", default=None, help=LIBRARY_HELP)
     sub = p.add_subparsers(dest="library_command", metavar="ACTION")
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("--library", metavar="FILE", default=argparse.SUPPRESS, help=LIBRARY_HELP)
+    common.add_argument("--library", metavar="FILE|URL", default=argparse.SUPPRESS, help=LIBRARY_HELP)
 
     def add(name, help_text, **kw):
         sp = sub.add_parser(name, parents=[common], help=help_text, description=help_text, **kw)
@@ -48,9 +50,10 @@ def register(subparsers) -> None:
     sp.add_argument("parts_file", metavar="PARTS.toml")
     sp.set_defaults(func=run, action=_add_parts)
 
-    sp = add("add", "add a run directory (fitted, model auto), a curve document or a supplier's "
-                    "claim (CLAIM.csv, filed as origin 'supplier claim') to the library")
-    sp.add_argument("source", metavar="RUN_DIR|CURVE.json|CLAIM.csv")
+    sp = add("add", "add a run directory (fitted, model auto; a part not yet in the library is filed "
+                    "from the run's own catalogue copy), a curve document, a supplier's claim (CLAIM.csv, "
+                    "filed as origin 'supplier claim') or a verification report (report.json)")
+    sp.add_argument("source", metavar="RUN_DIR|CURVE.json|CLAIM.csv|report.json")
     sp.add_argument("--part", metavar="ID", help="part id (default: the run's only part, or the curve's own)")
     sp.add_argument("--all-parts", action="store_true", help="a run directory: add the curves of every part in it")
     sp.add_argument("--model", default="auto", help="model to fit a run with (default auto: chosen by the fit)")
@@ -96,7 +99,9 @@ def register(subparsers) -> None:
 
     sp = add("export", "export a part's curves as csv, json, spice or touchstone")
     sp.add_argument("part_id", metavar="ID")
-    sp.add_argument("--format", choices=("csv", "json", "spice", "touchstone"), required=True)
+    from benchkit.exports import FORMATS
+
+    sp.add_argument("--format", choices=FORMATS, required=True)
     sp.add_argument("--out", required=True, metavar="PATH",
                     help="a file (when one curve is exported) or a folder (one file per curve, "
                          "named from the part id made file-safe and the curve number)")
@@ -123,8 +128,9 @@ def register(subparsers) -> None:
     sp.add_argument("--json", action="store_true", help="print the answer as JSON")
     sp.set_defaults(func=run, action=_impedance)
 
-    sp = add("import", "merge another library file into this one (what is here already is not added again)")
-    sp.add_argument("other", metavar="OTHER.sqlite")
+    sp = add("import", "merge another library (file or URL) into this one (what is here already is not "
+                       "added again; the order of merges does not matter)")
+    sp.add_argument("other", metavar="OTHER.sqlite|URL")
     sp.set_defaults(func=run, action=_import)
 
     p.set_defaults(func=_no_action, parser=p)
@@ -135,10 +141,20 @@ def _no_action(args) -> int:
     return 2
 
 
+@contextmanager
 def _open(args, create: bool):
+    """The library, closed after use; a file this command created is removed again if it fails."""
     from benchkit.library import Library
 
-    return Library(args.library, create=create)
+    lib = Library(args.library, create=create)
+    try:
+        yield lib
+    except BaseException:
+        lib.close()
+        if lib.created:
+            lib.discard_new_file()
+        raise
+    lib.close()
 
 
 def run(args) -> int:
@@ -175,8 +191,12 @@ def _add(args) -> int:
             if args.all_parts:
                 from benchkit.library.ingest import parts_in_run
 
+                from benchkit.sweep import runlog
+                from benchkit.library.ingest import run_catalogue
+
                 part_ids = parts_in_run(src)
-                missing = [p for p in part_ids if not lib.has_part(p)]
+                meta = runlog.read_run(src)
+                missing = [p for p in part_ids if not lib.has_part(p) and run_catalogue(meta, p) is None]
                 if missing:
                     lib.part(missing[0])  # the one-line "not in the library" error, before any fit
             else:
@@ -204,10 +224,23 @@ def _add(args) -> int:
             text = src.read_text(encoding="utf-8")
         except (OSError, UnicodeDecodeError) as exc:
             raise UserError(f"{src}: unreadable ({exc})") from None
+        if '"benchkit-verification"' in text:
+            return _add_verdict(args, src, text)
         curve = curve_from_json(text, str(src))
     with _open(args, create=True) as lib:
         cid, added = lib.add_curve(curve, args.part, esr_ohm=args.esr, where=str(src))
         print(f"curve {cid} {'added' if added else 'already present'} in {lib.where}")
+    return 0
+
+
+def _add_verdict(args, src: Path, text: str) -> int:
+    try:
+        doc = json.loads(text)
+    except ValueError as exc:
+        raise UserError(f"{src}: not valid JSON ({exc})") from None
+    with _open(args, create=True) as lib:
+        vid, added = lib.add_verdict(doc, where=str(src))
+        print(f"verification report {vid} {'added' if added else 'already present'} in {lib.where}")
     return 0
 
 
@@ -381,5 +414,8 @@ def _import(args) -> int:
         s = lib.import_library(args.other)
         print(f"{lib.where}: from {args.other}: {s.parts_added} parts, {s.runs_added} runs, "
               f"{s.curves_added} curves added; {s.curves_present} curves were already here"
-              + (f"; {s.parts_kept} parts differ there and were kept as here" if s.parts_kept else ""))
+              + (f"; {s.verdicts_added} verification reports added" if s.verdicts_added else "")
+              + (f"; {s.parts_kept} parts differ there and were kept as here (changed later here)"
+                 if s.parts_kept else "")
+              + (f"; {s.parts_updated} parts taken from there (changed later there)" if s.parts_updated else ""))
     return 0

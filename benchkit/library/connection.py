@@ -27,32 +27,52 @@ def _is_busy(exc: sqlite3.OperationalError) -> bool:
     return "locked" in text or "busy" in text
 
 
+def open_connection(target, *, create: bool = True, busy_timeout_s: float = schema.DEFAULT_BUSY_TIMEOUT_S,
+                    readonly: bool = False):
+    """A library connection: PostgreSQL for a postgresql:// URL, else an SQLite file (or :memory:)."""
+    if schema.is_url(target):
+        from benchkit.library.postgres import PostgresConnection
+
+        return PostgresConnection(target, create=create, busy_timeout_s=busy_timeout_s, readonly=readonly)
+    return LibraryConnection(target, create=create, busy_timeout_s=busy_timeout_s, readonly=readonly)
+
+
 class LibraryConnection:
-    """An sqlite3 connection in autocommit mode whose transactions this class opens and closes."""
+    """An sqlite3 connection in autocommit mode whose transactions this class opens and closes.
+
+    check_same_thread is off: a Library used from several threads (the web server) guards
+    itself with a lock; sqlite3 itself is built thread-safe.
+    """
+
+    kind = "sqlite"
 
     def __init__(self, path: str | Path, *, create: bool = True,
                  busy_timeout_s: float = schema.DEFAULT_BUSY_TIMEOUT_S, readonly: bool = False):
         self.busy_timeout_s = float(busy_timeout_s)
         self.where = str(path)
+        self.created = False
         if str(path) == MEMORY:
             self.path = None
-            conn = sqlite3.connect(MEMORY, isolation_level=None)
+            conn = sqlite3.connect(MEMORY, isolation_level=None, check_same_thread=False)
         else:
             p = Path(path).expanduser()
             self.path = p
             self.where = str(p)
             exists = schema.check_sqlite_file(p)
+            self.created = not p.exists() and not readonly
             if not exists and (readonly or not create):
                 raise UserError(
                     f"no library at {p}; give --library or set BENCHKIT_LIBRARY, or create one with "
-                    f"'benchkit library add-parts PARTS.toml'"
+                    f"'benchkit library add-parts PARTS.toml' or 'benchkit library add RUN_DIR'"
                 )
             if readonly:
                 uri = f"{p.resolve().as_uri()}?mode=ro"
-                conn = sqlite3.connect(uri, uri=True, timeout=self.busy_timeout_s, isolation_level=None)
+                conn = sqlite3.connect(uri, uri=True, timeout=self.busy_timeout_s, isolation_level=None,
+                                       check_same_thread=False)
             else:
                 p.parent.mkdir(parents=True, exist_ok=True)
-                conn = sqlite3.connect(str(p), timeout=self.busy_timeout_s, isolation_level=None)
+                conn = sqlite3.connect(str(p), timeout=self.busy_timeout_s, isolation_level=None,
+                                       check_same_thread=False)
         self.conn = conn
         try:
             conn.execute(f"PRAGMA busy_timeout = {int(self.busy_timeout_s * 1000)}")

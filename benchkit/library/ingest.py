@@ -74,6 +74,17 @@ def esr_estimate(rows: list[dict[str, str]]) -> float | None:
     return float(np.median(vals)) if vals else None
 
 
+def run_catalogue(meta: dict, part_id: str):
+    """The catalogue fields of part_id as the run recorded them (run.json samples[].part), or None."""
+    from benchkit.library.records import PartRecord
+
+    for s in meta.get("samples") or []:
+        part = s.get("part") if isinstance(s, dict) else None
+        if isinstance(part, dict) and (part.get("id") or part.get("part_id")) == part_id:
+            return PartRecord.from_any(part)
+    return None
+
+
 def parts_in_run(run_dir: Path) -> list[str]:
     """The part ids a run directory has points of, sorted."""
     rows, _ = runlog.read_points(run_dir)
@@ -109,8 +120,12 @@ def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str 
         part_id = in_run[0]
     if part_id not in in_run:
         raise UserError(f"{run_dir}: the run has no points of part {part_id!r}; it holds {', '.join(in_run)}")
+    new_parts = []
     if not lib.has_part(part_id):
-        lib.part(part_id)  # raises the one-line "not in the library" error
+        catalogue = run_catalogue(meta, part_id)
+        if catalogue is None:
+            lib.part(part_id)  # raises the one-line "not in the library" error
+        new_parts = [catalogue]  # filed with the curves, in one transaction
     summary = AddRunSummary(Path(run_dir), part_id, sha, lib.has_run(sha, part_id))
     if summary.already_present:
         return summary
@@ -135,7 +150,7 @@ def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str 
                 summary.curves.append(FittedCurve(sample_id, branch, curve, esr_estimate(brows), len(brows)))
     run = RunInfo(sha, meta.get("run_id"), str(Path(run_dir).resolve()), status, meta)
     ids = lib.add_curves([(fc.curve, fc.esr_ohm) for fc in summary.curves], part_id=part_id, run=run,
-                         where=str(run_dir))
+                         where=str(run_dir), new_parts=new_parts)
     for fc, (cid, added) in zip(summary.curves, ids):
         fc.curve_id, fc.added = cid, added
     return summary

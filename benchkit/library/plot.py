@@ -13,12 +13,11 @@ from benchkit.library.records import CurveRecord, PartRecord
 
 def plot_part(part: PartRecord, records: list[CurveRecord], path: str | Path) -> Path:
     """Draw the curves (solid, with a +-2u band where the covariance gives one) and save atomically."""
-    import matplotlib
-
-    matplotlib.use("Agg")
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
     fig = Figure(figsize=(7.5, 4.8), dpi=110)
+    FigureCanvasAgg(fig)  # the Agg canvas chosen here, not by a process-wide matplotlib.use()
     ax = fig.add_subplot(1, 1, 1)
     for rec in records:
         curve = rec.curve

@@ -80,7 +80,8 @@ def _group_extreme(key, mask, values, K, fn, fill):
 def run_query(lib, bias_V: float, temp_C: float = 25.0, *, min_C_F: float | None = None,
               case: str | None = None, class_code: str | None = None, branch: str | None = None,
               origin: str | None = None, temp_tol_C: float = DEFAULT_TEMP_TOL_C,
-              limit: int | None = None) -> list[QueryResult]:
+              limit: int | None = None, min_rated_V: float | None = None,
+              nominal_C_F: float | None = None) -> list[QueryResult]:
     """See the module docstring for the rules. Returns QueryResult objects, ranked."""
     V = float(bias_V)
     T = float(temp_C)
@@ -102,29 +103,37 @@ def run_query(lib, bias_V: float, temp_C: float = 25.0, *, min_C_F: float | None
         part_ok &= t.part_case == case
     if class_code is not None:
         part_ok &= t.part_class == class_code
-    C, u = t.evaluate(V)
+    if min_rated_V is not None:  # rated at least this voltage (parts without a rating drop out)
+        rated = np.array([p.rated_V if p.rated_V is not None else np.nan for p in t.parts], dtype=float)
+        part_ok &= np.nan_to_num(rated, nan=-np.inf) >= float(min_rated_V)
+    if nominal_C_F is not None:  # this nominal value (within 0.5 %: E-series steps are far wider)
+        nominal = np.array([p.nominal_C_F if p.nominal_C_F is not None else np.nan for p in t.parts], dtype=float)
+        part_ok &= np.abs(np.nan_to_num(nominal, nan=np.inf) / float(nominal_C_F) - 1.0) <= 0.005
     ok = part_ok[t.part_index] if t.n else np.zeros(0, dtype=bool)
     if branch is not None:
         ok &= t.branch == branch_code(branch)
     if origin is not None:
         ok &= t.origin_rank == schema.ORIGINS.index(origin)
-    # never extrapolated; the edge tolerance is fits.Curve's own (1e-9 of the range's size)
-    edge = 1e-9 * np.maximum(1.0, np.maximum(np.abs(t.lo_V), np.abs(t.hi_V)))
-    reach = ok & (t.lo_V - edge <= V) & (V <= t.hi_V + edge) & np.isfinite(C)
     key = t.part_index * R + t.origin_rank
     dT = t.temp_C - T
-
-    # 1) curves at the asked temperature
+    # which curves can answer: at the asked temperature, or the nearest below and above it
     at = ok & (np.abs(dT) <= tol)
-    n_at = np.bincount(key[at], minlength=K)
-    p_at = _pool(key, at & reach, C, u, t.temp_C, K)
-    # 2) else the nearest temperatures below and above, interpolated
     below = ok & (dT < -tol)
     above = ok & (dT > tol)
     T_lo = _group_extreme(key, below, t.temp_C, K, np.maximum, -np.inf)
     T_hi = _group_extreme(key, above, t.temp_C, K, np.minimum, np.inf)
     near_lo = below & (np.abs(t.temp_C - T_lo[key]) <= tol)
     near_hi = above & (np.abs(t.temp_C - T_hi[key]) <= tol)
+    # never extrapolated; the edge tolerance is fits.Curve's own (1e-9 of the range's size)
+    edge = 1e-9 * np.maximum(1.0, np.maximum(np.abs(t.lo_V), np.abs(t.hi_V)))
+    inside = (t.lo_V - edge <= V) & (V <= t.hi_V + edge)
+    C, u = t.evaluate(V, (at | near_lo | near_hi) & inside)  # only the curves that may answer
+    reach = ok & inside & np.isfinite(C)
+
+    # 1) curves at the asked temperature
+    n_at = np.bincount(key[at], minlength=K)
+    p_at = _pool(key, at & reach, C, u, t.temp_C, K)
+    # 2) else the nearest temperatures below and above, interpolated
     p_lo = _pool(key, near_lo & reach, C, u, t.temp_C, K)
     p_hi = _pool(key, near_hi & reach, C, u, t.temp_C, K)
     bracket = (n_at == 0) & np.isfinite(T_lo) & np.isfinite(T_hi)

@@ -23,6 +23,19 @@ DEFAULT_BUSY_TIMEOUT_S = 30.0
 ORIGINS = ("lot summary", "measured", "supplier claim")  # also the query's order of preference
 
 
+def is_url(target) -> bool:
+    """A PostgreSQL connection URL rather than a file path."""
+    return isinstance(target, str) and target.startswith(("postgresql://", "postgres://"))
+
+
+def default_library_target() -> str | Path:
+    """$BENCHKIT_LIBRARY (a file path or a postgresql:// URL), else the default file."""
+    env = os.environ.get("BENCHKIT_LIBRARY")
+    if env and is_url(env):
+        return env
+    return default_library_path()
+
+
 def default_library_path() -> Path:
     """$BENCHKIT_LIBRARY, else $XDG_DATA_HOME/benchkit/library.sqlite, else ~/.local/share/benchkit/library.sqlite."""
     env = os.environ.get("BENCHKIT_LIBRARY")
@@ -117,8 +130,54 @@ def _v1(conn: sqlite3.Connection) -> None:
     )
 
 
-# MIGRATIONS[i] takes a file from version i to version i + 1.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_v1]
+def _v2(conn: sqlite3.Connection) -> None:
+    """Records with a history, verdicts, and the query's column store.
+
+    - part.updated_utc: when the catalogue fields last changed (a merge keeps the later ones);
+    - revision: a curve is never edited; a revision is a new record, and this small table names
+      the content hash it replaces (the query answers from the latest);
+    - verdict: verification reports (their JSON document), identified by content hash;
+    - curve_pack: the query's packed arrays (pack.py), filled here from the curves held.
+    """
+    for statement in (
+        "ALTER TABLE part ADD COLUMN updated_utc TEXT NOT NULL DEFAULT ''",
+        "UPDATE part SET updated_utc = added_utc",
+"""CREATE TABLE revision (
+            new_sha256 TEXT PRIMARY KEY,
+            old_sha256 TEXT NOT NULL
+        )""",
+        """CREATE TABLE verdict (
+            id             INTEGER PRIMARY KEY,
+            content_sha256 TEXT NOT NULL UNIQUE,
+            part_id        TEXT NOT NULL REFERENCES part(part_id) ON DELETE CASCADE,
+            verdict        TEXT NOT NULL,
+            rule           TEXT,
+            document       TEXT NOT NULL,
+            added_utc      TEXT NOT NULL
+        )""",
+        "CREATE INDEX verdict_by_part ON verdict(part_id)",
+        """CREATE TABLE curve_pack (
+            id          INTEGER PRIMARY KEY,
+            model       TEXT NOT NULL,
+            param_names TEXT NOT NULL,
+            loose       INTEGER NOT NULL,
+            n           INTEGER NOT NULL,
+            ids         BLOB NOT NULL,
+            part_ids    TEXT NOT NULL,
+            numbers     BLOB NOT NULL,
+            params      BLOB,
+            covariance  BLOB
+        )""",
+    ):
+        conn.execute(statement)
+    from benchkit.library import pack
+
+    pack.rebuild(conn)
+
+
+# MIGRATIONS[i] takes a file from version i to version i + 1. The PostgreSQL schema
+# (benchkit.library.postgres.MIGRATIONS) has the same versions, step for step.
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_v1, _v2]
 
 
 def latest_version() -> int:

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from benchkit.errors import UserError
-from benchkit.library import fitsbridge, schema
+from benchkit.library import fitsbridge, pack
 from benchkit.library.records import PartRecord
 
 BRANCH_CODES = {None: 0, "": 0, "rising": 1, "falling": 2}
@@ -36,29 +36,32 @@ class ModelGroup:
     P: np.ndarray
     cov: np.ndarray
 
-    def evaluate(self, V: float) -> tuple[np.ndarray, np.ndarray]:
-        """C and its standard uncertainty u_C = sqrt(J Sigma J^T) for every curve of the group at V.
+    def evaluate(self, V: float, sel: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """C and its standard uncertainty u_C = sqrt(J Sigma J^T) for the group's curves at V
+        (those where sel is True, when given).
 
         J = dC/dp by central differences over the whole stack at once; the step follows
         fits.models.base.ModelSpec.jacobian (1e-6 of the parameter, or of the typical size of
         its kind when it is 0), so the answer matches Curve.u_C to the differencing error.
         """
         names = self.param_names
-        cols = {n: self.P[:, j] for j, n in enumerate(names)}
-        nrow = self.P.shape[0]
+        P_all = self.P if sel is None else self.P[sel]
+        cov_all = self.cov if sel is None else self.cov[sel]
+        cols = {n: P_all[:, j] for j, n in enumerate(names)}
+        nrow = P_all.shape[0]
         with np.errstate(all="ignore"):
             C = np.broadcast_to(np.asarray(self.spec.C(V, **cols), dtype=float), (nrow,))
-            diag = np.diagonal(self.cov, axis1=1, axis2=2)
+            diag = np.diagonal(cov_all, axis1=1, axis2=2)
             # parameters held fixed in every fit (variance 0, e.g. poly V_scale_V, table knots)
             # contribute nothing: skip their derivative (saves model calls).
             active = [j for j in range(len(names)) if np.any(np.nan_to_num(diag[:, j]) != 0.0)]
             cap = [j for j, n in enumerate(names) if n.endswith("_F")]
-            cap_size = np.max(np.abs(self.P[:, cap]), axis=1) if cap else np.ones(nrow)
+            cap_size = np.max(np.abs(P_all[:, cap]), axis=1) if cap else np.ones(nrow)
             cap_size = np.maximum(cap_size, 1e-30)
             J = np.zeros((nrow, len(active)))
             for col, j in enumerate(active):
                 n = names[j]
-                p = self.P[:, j]
+                p = P_all[:, j]
                 typical = cap_size if n.endswith("_F") else 1.0
                 h = 1e-6 * np.where(p != 0.0, np.abs(p), typical)
                 up = dict(cols)
@@ -66,10 +69,10 @@ class ModelGroup:
                 dn = dict(cols)
                 dn[n] = p - h
                 J[:, col] = (np.asarray(self.spec.C(V, **up)) - np.asarray(self.spec.C(V, **dn))) / (2.0 * h)
-            sub = self.cov[:, active][:, :, active]
+            sub = cov_all[:, active][:, :, active]
             var = np.einsum("ni,nij,nj->n", J, sub, J)
             u = np.sqrt(np.clip(var, 0.0, None))
-            u[np.any(np.isnan(self.cov.reshape(nrow, -1)), axis=1)] = np.nan  # no covariance stored
+            u[np.any(np.isnan(cov_all.reshape(nrow, -1)), axis=1)] = np.nan  # no covariance stored
         return C, u
 
 
@@ -94,15 +97,26 @@ class CurveTable:
     def n(self) -> int:
         return int(self.curve_id.size)
 
-    def evaluate(self, V: float) -> tuple[np.ndarray, np.ndarray]:
-        """C_F and u_C_F of every curve at V (NaN where a curve cannot say: outside its range, unknown model)."""
+    def evaluate(self, V: float, need: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """C_F and u_C_F of every curve at V, or of the rows where `need` is True (NaN where a
+        curve cannot say or was not asked: outside its range, unknown model)."""
         C = np.full(self.n, np.nan)
         u = np.full(self.n, np.nan)
         for g in self.groups:
-            c, uu = g.evaluate(V)
-            C[g.rows] = c
-            u[g.rows] = uu
+            if need is None:
+                c, uu = g.evaluate(V)
+                C[g.rows] = c
+                u[g.rows] = uu
+                continue
+            sel = need[g.rows]
+            if not sel.any():
+                continue
+            c, uu = g.evaluate(V, sel)
+            C[g.rows[sel]] = c
+            u[g.rows[sel]] = uu
         for row, doc in self.loose:
+            if need is not None and not need[row]:
+                continue
             if not (self.lo_V[row] <= V <= self.hi_V[row]):
                 continue
             curve = self._loose_curves.get(row)
@@ -120,59 +134,47 @@ class CurveTable:
         return C, u
 
 
-def _ints(text: str | None, n: int) -> np.ndarray:
-    if n == 0:
-        return np.zeros(0, dtype=np.int64)
-    out = np.fromstring(text, dtype=np.int64, sep=",")  # text mode (sep given): parsed in C
-    if out.size != n:  # pragma: no cover - a damaged file
-        raise UserError("library table: row count mismatch while loading; the file may be damaged")
-    return out
-
-
-# One aggregate row per model variant. All aggregates of one SELECT see the rows in the same
-# order (SQLite feeds each row to every aggregate in one pass), so the columns line up. Numbers
-# come as hex of their float64 blobs (exact, no decimal round trip): the whole library arrives
-# as a few long strings that numpy parses in C, not as 100,000 Python tuples.
-_GROUP_SQL = (
-    "SELECT count(*), group_concat(c.id), group_concat(c.part_id, char(31)), "
-    "group_concat(hex(c.numbers_f64), ''), group_concat(hex(c.params_f64), ''), "
-    "group_concat(hex(coalesce(c.covariance_f64, ?)), '') "
-    "FROM curve c WHERE c.model = ? AND c.param_names = ? AND c.params_f64 IS NOT NULL"
-)
-N_NUMBERS = 5  # valid_lo_V, valid_hi_V, temp_C, origin rank, branch code (schema.py)
+def _part_index(pids: list[str], sorted_ids: np.ndarray, index: dict) -> np.ndarray:
+    """Row -> part number, by binary search over the sorted part ids (numpy, not a Python loop)."""
+    arr = np.array(pids)
+    pos = np.searchsorted(sorted_ids, arr)
+    pos = np.minimum(pos, max(len(sorted_ids) - 1, 0))
+    if len(sorted_ids) and np.array_equal(sorted_ids[pos], arr):
+        return pos.astype(np.int64)
+    return np.fromiter((index[x] for x in pids), dtype=np.int64, count=len(pids))  # raises on a stray id
 
 
 def load_table(conn, generation: int) -> CurveTable:
-    """Read parts and curves (inside one read snapshot) into arrays."""
+    """Read parts and the packed curves (inside one read snapshot) into arrays (pack.py).
+
+    Curves superseded by a newer record of the same curve (Library.revise_curve) are left out:
+    the query answers from the latest record of each curve.
+    """
     parts = [PartRecord(*r) for r in conn.execute(
         "SELECT part_id, description, nominal_C_F, tolerance, rated_V, class_code, case_code, supplier "
-        "FROM part ORDER BY part_id")]
+        "FROM part ORDER BY part_id").fetchall()]
+    parts.sort(key=lambda p: p.part_id)  # code-point order, whatever the server's collation
     index = {p.part_id: i for i, p in enumerate(parts)}
-
-    def part_index(text: str, n: int) -> np.ndarray:
-        # part ids hold no control characters (records.check_part_id): char(31) separates them
-        ids = text.split("\x1f")
-        if len(ids) != n:  # pragma: no cover - a damaged file
-            raise UserError("library table: row count mismatch while loading; the file may be damaged")
-        return np.array([index[x] for x in ids], dtype=np.int64)
-
+    sorted_ids = np.array([p.part_id for p in parts]) if parts else np.zeros(0, dtype="U1")
+    retired = {int(r[0]) for r in conn.execute(
+        "SELECT c.id FROM revision r JOIN curve c ON c.content_sha256 = r.old_sha256")}
     chunks: dict[str, list[np.ndarray]] = {k: [] for k in
                                            ("id", "part", "origin", "branch", "temp", "lo", "hi")}
     groups: list[ModelGroup] = []
+    loose_rows: list[tuple[int, int]] = []  # (row, curve id)
     start = 0
-    variants = conn.execute(
-        "SELECT DISTINCT model, param_names FROM curve ORDER BY model, param_names"
-    ).fetchall()
-    for model, names in variants:
-        pnames = tuple(json.loads(names))
-        k = len(pnames)
-        nan_cov = np.full(k * k, np.nan).astype("<f8").tobytes()
-        (n, ids, pids, nhex, phex, chex) = conn.execute(_GROUP_SQL, (nan_cov, model, names)).fetchone()
+    for seg in pack.load(conn):
+        keep = np.ones(seg.n, dtype=bool)
+        if retired:
+            keep = ~np.isin(seg.ids, np.fromiter(retired, dtype=np.int64))
+        ids = seg.ids[keep]
+        n = int(ids.size)
         if n == 0:
             continue
-        numbers = np.frombuffer(bytes.fromhex(nhex), dtype="<f8").reshape(n, N_NUMBERS).astype(float)
-        chunks["id"].append(_ints(ids, n))
-        chunks["part"].append(part_index(pids, n))
+        numbers = seg.numbers[keep]
+        pids = seg.part_ids if keep.all() else [p for p, k in zip(seg.part_ids, keep.tolist()) if k]
+        chunks["id"].append(ids)
+        chunks["part"].append(_part_index(pids, sorted_ids, index))
         chunks["lo"].append(numbers[:, 0])
         chunks["hi"].append(numbers[:, 1])
         chunks["temp"].append(numbers[:, 2])
@@ -180,24 +182,19 @@ def load_table(conn, generation: int) -> CurveTable:
         chunks["branch"].append(numbers[:, 4].astype(np.int64))
         rows = np.arange(start, start + n, dtype=np.int64)
         start += n
+        if seg.loose:
+            loose_rows.extend(zip(rows.tolist(), ids.tolist()))
+            continue
         try:
-            spec = fitsbridge.model_spec(model, pnames)
+            spec = fitsbridge.model_spec(seg.model, seg.param_names)
         except UserError:
             continue  # a model this benchkit does not know: its curves stay NaN (not covered)
-        P = np.frombuffer(bytes.fromhex(phex), dtype="<f8").reshape(n, k).astype(float)
-        cov = np.frombuffer(bytes.fromhex(chex), dtype="<f8").reshape(n, k, k).astype(float)
-        groups.append(ModelGroup(model, pnames, spec, rows, P, cov))
+        groups.append(ModelGroup(seg.model, seg.param_names, spec, rows, seg.params[keep], seg.covariance[keep]))
     # curves whose parameters are not plain numbers: evaluated one by one through fits.Curve
-    rank = {o: i for i, o in enumerate(schema.ORIGINS)}
     loose = []
-    for cid, pid, origin, br, t, lo, hi, doc in conn.execute(
-            "SELECT c.id, c.part_id, c.origin, c.branch, c.temp_C, c.valid_lo_V, c.valid_hi_V, d.document "
-            "FROM curve c JOIN curve_doc d ON d.curve_id = c.id WHERE c.params_f64 IS NULL ORDER BY c.id"):
-        for key, value in (("id", cid), ("part", index[pid]), ("origin", rank[origin]),
-                           ("branch", branch_code(br)), ("temp", t), ("lo", lo), ("hi", hi)):
-            chunks[key].append(np.array([value]))
-        loose.append((start, doc))
-        start += 1
+    if loose_rows:
+        loose = [(row, conn.execute("SELECT document FROM curve_doc WHERE curve_id = ?", (cid,)).fetchone()[0])
+                 for row, cid in loose_rows]
 
     def cat(key, dtype):
         return np.concatenate(chunks[key]).astype(dtype) if chunks[key] else np.zeros(0, dtype=dtype)

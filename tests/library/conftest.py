@@ -49,11 +49,13 @@ def tanh_C(V, C_inf_F, C_pk_F, V0_V, V_off_V):
 
 
 def write_run(run_dir: Path, *, part_id="BD-1001", samples=("FX-01",), seed=0, noise=0.002, v_max=6.0,
-              n_steps=13, temp_C=25.0, params=None, rs_ohm=0.02, part_of=None) -> Path:
+              n_steps=13, temp_C=25.0, params=None, rs_ohm=0.02, part_of=None, catalogue=None) -> Path:
     """A complete run directory (run.json + points.csv) of invented, noisy tanh-type data.
 
     part_of: {sample_id: part_id} for a run over several parts (default: every sample is part_id).
+    catalogue: {part_id: catalogue fields} recorded in run.json (samples[].part), as a bench does.
     """
+    catalogue = catalogue or {}
     part_of = part_of or {}
     rng = np.random.default_rng(seed)
     params = params or tanh_params()
@@ -61,7 +63,8 @@ def write_run(run_dir: Path, *, part_id="BD-1001", samples=("FX-01",), seed=0, n
         "format": runlog.RUN_FORMAT, "version": runlog.RUN_VERSION, "run_id": f"run-{run_dir.name}",
         "software_version": "test", "status": "running", "reason": None, "start_utc": runlog.utc_now(),
         "end_utc": None, "clock": "virtual", "plan": {}, "instruments": {},
-        "samples": [{"sample_id": s, "part_id": part_of.get(s, part_id), "channel": i + 1, "part": {}}
+        "samples": [{"sample_id": s, "part_id": part_of.get(s, part_id), "channel": i + 1,
+                     "part": dict(catalogue.get(part_of.get(s, part_id), {}))}
                     for i, s in enumerate(samples)],
         "conditions": {"function": "CPD", "freq_Hz": 1000.0, "ac_level_Vrms": 1.0, "conditions_source": "test"},
         "points_file": runlog.POINTS_FILE, "points_sha256": None, "events": [],
@@ -97,11 +100,20 @@ def parts():
     return [dict(p) for p in PARTS]
 
 
+@pytest.fixture(params=["sqlite", "postgresql"])
+def library_target(request, tmp_path):
+    """Where a test's library lives: an SQLite file, or a fresh schema on the PostgreSQL server."""
+    if request.param == "sqlite":
+        return tmp_path / "lib.sqlite"
+    return request.getfixturevalue("postgres_url")
+
+
 @pytest.fixture
-def lib(tmp_path, parts):
+def lib(library_target, parts):
+    """A library holding the three invented parts, on each backend in turn."""
     from benchkit.library import Library
 
-    with Library(tmp_path / "lib.sqlite") as library:
+    with Library(library_target) as library:
         library.add_parts(parts)
         yield library
 

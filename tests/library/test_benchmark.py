@@ -7,9 +7,15 @@ from benchkit.library import benchmark_query
 
 def test_benchmark_query_small(tmp_path):
     out = benchmark_query(400, folder=tmp_path)
-    assert out["n_curves"] == 400 and out["n_parts"] == 20
+    assert out["n_curves"] == 400 and out["n_parts"] == 20 and out["backends"] == ["sqlite"]
     assert out["covered_parts"] == 20  # every synthetic part has curves at 85 degC reaching 5 V
-    for key in ("build_s", "query_cold_s", "query_warm_s", "loop_s"):
-        assert out[key] > 0
-    assert out["loop_over_query"] == out["loop_s"] / out["query_warm_s"]
+    for key in ("build_s", "query_cold_s", "query_warm_s"):
+        assert out["sqlite"][key] > 0
+    assert out["loop_over_query"] == out["loop_s"] / out["sqlite"]["query_warm_s"]
     assert list(tmp_path.iterdir()) == []  # the temporary library is gone
+
+
+def test_benchmark_query_on_both_backends(tmp_path, postgres_url):
+    out = benchmark_query(200, folder=tmp_path, postgres_url=postgres_url, loop=False)
+    assert out["backends"] == ["sqlite", "postgresql"] and out["same_answer_on_both"]
+    assert out["postgresql"]["covered_parts"] == out["sqlite"]["covered_parts"] == 10

@@ -104,7 +104,7 @@ def test_import_refuses_itself_and_non_libraries(tmp_path, lib):
     from benchkit.errors import UserError
 
     with pytest.raises(UserError, match="itself"):
-        lib.import_library(lib.path)
+        lib.import_library(lib.target)
     junk = tmp_path / "junk.sqlite"
     junk.write_text("not sqlite")
     with pytest.raises(UserError, match="not a benchkit library"):

@@ -41,7 +41,7 @@ def test_same_run_twice_and_from_a_second_bench(lib, mk, tmp_path, capsys):
 
     copy = tmp_path / "elsewhere" / "run-2"
     shutil.copytree(run, copy)
-    code = main(["library", "--library", str(lib.path), "add", str(copy), "--part", "BD-1001"])
+    code = main(["library", "--library", str(lib.target), "add", str(copy), "--part", "BD-1001"])
     assert code == 0 and "nothing added" in capsys.readouterr().out
     assert lib.summary() == n
 

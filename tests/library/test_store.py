@@ -22,9 +22,12 @@ def _digest(path):
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def _content(path):
-    """Everything a library holds, as SQL text (sqlite3 iterdump): equal means nothing changed."""
-    conn = sqlite3.connect(path)
+def _content(lib):
+    """Everything a library holds: the SQL text of the file (sqlite3 iterdump), or on PostgreSQL
+    the library's content fingerprint with its generation counter. Equal means nothing changed."""
+    if lib.path is None:
+        return lib.fingerprint(), lib.generation
+    conn = sqlite3.connect(lib.path)
     try:
         return "\n".join(conn.iterdump())
     finally:
@@ -60,35 +63,35 @@ def test_nasty_part_id_is_stored_and_found_literally(lib, mk, tmp_path, capsys):
         lib.part(NASTY_ID[:-1])
     # the CLI shows it and writes its plot and exports inside the output folder
     out = tmp_path / "exports"
-    code = main(["library", "--library", str(lib.path), "export", NASTY_ID, "--format", "json", "--out", str(out)])
+    code = main(["library", "--library", str(lib.target), "export", NASTY_ID, "--format", "json", "--out", str(out)])
     assert code == 0
     written = list(out.iterdir())
     assert len(written) == 1 and written[0].parent == out and "/" not in written[0].name
     assert json.loads(written[0].read_text())["part_id"] == NASTY_ID
-    code = main(["library", "--library", str(lib.path), "show", NASTY_ID, "--plot", str(tmp_path / "p.png")])
+    code = main(["library", "--library", str(lib.target), "show", NASTY_ID, "--plot", str(tmp_path / "p.png")])
     assert code == 0 and NASTY_ID in capsys.readouterr().out
     # an injection attempt naming a part that does not exist: one line, exit 2, nothing changed
-    before = _content(lib.path)
+    before = _content(lib)
     for action in ("show", "remove"):
-        code = main(["library", "--library", str(lib.path), action, "x' OR '1'='1'; DELETE FROM curve; --"])
+        code = main(["library", "--library", str(lib.target), action, "x' OR '1'='1'; DELETE FROM curve; --"])
         err = capsys.readouterr().err
         assert code == 2 and err.count("\n") == 1 and "is not in the library" in err
-    assert _content(lib.path) == before
+    assert _content(lib) == before
 
 
 def test_missing_part_one_line_nothing_changed(lib, mk, tmp_path, capsys):
     curve = mk.make_curve(part_id="BD-9999")
     path = tmp_path / "c.json"
     curve.save(path)
-    before = _content(lib.path)
-    code, err = _one_line_error(capsys, ["library", "--library", str(lib.path), "add", str(path)])
+    before = _content(lib)
+    code, err = _one_line_error(capsys, ["library", "--library", str(lib.target), "add", str(path)])
     assert code == 2 and err.count("\n") == 1 and "BD-9999" in err and "add-parts" in err
-    assert _content(lib.path) == before
+    assert _content(lib) == before
     for argv in (["show", "BD-9999"], ["remove", "BD-9999"], ["export", "BD-9999", "--format", "csv", "--out",
                                                                str(tmp_path / "x.csv")]):
-        code, err = _one_line_error(capsys, ["library", "--library", str(lib.path)] + argv)
+        code, err = _one_line_error(capsys, ["library", "--library", str(lib.target)] + argv)
         assert code == 2 and err.count("\n") == 1 and "BD-9999" in err
-    assert _content(lib.path) == before
+    assert _content(lib) == before
     assert not (tmp_path / "x.csv").exists()
 
 
@@ -154,11 +157,12 @@ def test_migrations_run_in_order_once_and_atomically(tmp_path, monkeypatch):
         calls.append("v2")
         conn.execute("CREATE TABLE note (text TEXT)")
 
+    before = latest_version()
     monkeypatch.setattr(schema, "MIGRATIONS", schema.MIGRATIONS + [v2])
     Library(path).close()
-    Library(path).close()  # already at v2: not run again
+    Library(path).close()  # already at the new version: not run again
     conn = sqlite3.connect(path)
-    assert conn.execute("PRAGMA user_version").fetchone()[0] == latest_version() == 2
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == latest_version() == before + 1
     conn.close()
     assert calls == ["v2"]
 
@@ -170,7 +174,7 @@ def test_migrations_run_in_order_once_and_atomically(tmp_path, monkeypatch):
     with pytest.raises(RuntimeError):
         Library(path)
     conn = sqlite3.connect(path)
-    assert conn.execute("PRAGMA user_version").fetchone()[0] == 2  # rolled back whole
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == before + 1  # rolled back whole
     assert conn.execute("SELECT 1 FROM sqlite_master WHERE name = 'half'").fetchone() is None
     conn.close()
 
@@ -202,7 +206,7 @@ def test_remove_curve_and_part(lib, mk):
     lib.remove_curve(a)
     assert [r.curve_id for r in lib.curves("BD-1001")] == [b]
     assert lib.remove_part("BD-1001") == 1
-    assert lib.summary() == {"part": 2, "sample": 0, "run": 0, "curve": 0}
+    assert lib.summary() == {"part": 2, "sample": 0, "run": 0, "curve": 0, "verdict": 0}
     with pytest.raises(UserError):
         lib.remove_curve(a)
 
@@ -226,9 +230,9 @@ def test_json_round_trip_through_library_and_export(lib, mk, tmp_path, model):
                              part_id="BD-1002")
     src = tmp_path / "in.json"
     orig.save(src)
-    assert main(["library", "--library", str(lib.path), "add", str(src)]) == 0
+    assert main(["library", "--library", str(lib.target), "add", str(src)]) == 0
     out = tmp_path / "out.json"
-    assert main(["library", "--library", str(lib.path), "export", "BD-1002", "--format", "json", "--out", str(out)]) == 0
+    assert main(["library", "--library", str(lib.target), "export", "BD-1002", "--format", "json", "--out", str(out)]) == 0
     back = Curve.load(out)
     V = np.linspace(0.0, 16.0, 97)
     np.testing.assert_allclose(back.C(V), orig.C(V), rtol=1e-12, atol=0)
@@ -242,7 +246,7 @@ def test_csv_round_trip_through_library(lib, mk, tmp_path):
     orig = mk.make_curve()
     lib.add_curve(orig)
     out = tmp_path / "t.csv"
-    assert main(["library", "--library", str(lib.path), "export", "BD-1001", "--format", "csv", "--out", str(out),
+    assert main(["library", "--library", str(lib.target), "export", "BD-1001", "--format", "csv", "--out", str(out),
                  "--points", "33"]) == 0
     cols = read_curve_csv(out.read_text())
     np.testing.assert_allclose(cols["C_F"], orig.C(cols["bias_V"]), rtol=1e-12, atol=0)
@@ -254,11 +258,12 @@ def test_export_folder_names_stay_inside(lib, mk, tmp_path):
     lib.add_curve(mk.make_curve(part_id="../../etc/BD-1", sample_id="A"))
     lib.add_curve(mk.make_curve(params=mk.tanh_params(c_pk=9e-6), part_id="../../etc/BD-1", sample_id="B"))
     out = tmp_path / "o"
-    assert main(["library", "--library", str(lib.path), "export", "../../etc/BD-1", "--format", "spice",
+    assert main(["library", "--library", str(lib.target), "export", "../../etc/BD-1", "--format", "spice",
                  "--out", str(out)]) == 0
     names = sorted(p.name for p in out.iterdir())
     assert len(names) == 2 and all(n.startswith("etc_BD-1_c") and n.endswith(".lib") for n in names)
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["lib.sqlite", "lib.sqlite-shm", "lib.sqlite-wal", "o"]
+    beside = sorted(p.name for p in tmp_path.iterdir() if not p.name.startswith("lib.sqlite"))
+    assert beside == ["o"]  # nothing written outside the folder asked for
 
 
 def test_control_characters_refused_in_part_ids(lib):
