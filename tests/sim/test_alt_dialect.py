@@ -118,3 +118,39 @@ def test_the_alt_profile_speaks_the_documented_alt_commands():
     for where, t in templates:
         header = t.header.lstrip(":")
         assert any(re.fullmatch(rx, header, re.I) for rx, _ in allowed), (where, t.text)
+
+
+def test_meter_bias_ramps_within_the_profile_limits_and_ends_safe(alt):
+    # the supply's guarantees [common practice]: never jump the bias, end at 0 V output off
+    from instruments.drivers import InvalidValueError, MeterBias
+
+    bench, clock = alt
+    with Scanner(bench.resources["scanner"]) as sc:
+        sc.select(3)
+        with open_meter(bench) as m:
+            with MeterBias(m) as b:
+                assert b.voltage_range_V == (-40.0, 40.0)      # the profile's bias_V range
+                with pytest.raises(InvalidValueError):
+                    b.ramp_to(41.0, 1.0, clock)                # refused before anything is sent
+                b.voltage_V = 0.0
+                b.output_on = True
+                t0 = clock.now()
+                steps = b.ramp_to(3.0, 2.0, clock, max_step_V=0.5)
+                assert [v for _, v in steps] == [0.0, 0.5, 1.0, 1.5, 2.0, 2.5, 3.0]
+                assert clock.now() - t0 >= 1.5                 # 3 V at 2 V/s
+                clock.sleep(2.0)
+                assert b.measured_voltage_V == pytest.approx(3.0, abs=0.01)
+                assert bench.part_voltage_V(3) == pytest.approx(3.0, abs=0.01)
+            # leaving the block ramped down on the clock of the last ramp, then switched off
+            assert b.last_ramp[-1][1] == 0.0 and len(b.last_ramp) == 7
+            assert m.bias_on is False and m.bias_V == 0.0
+    assert bench.supply_state()["output_on"] is False
+
+
+def test_meter_bias_needs_the_capability(alt):
+    from instruments.drivers import MeterBias, ProfileError
+
+    bench, _ = alt
+    m = LCRMeter(bench.resources["meter"], profile="generic-lcr")
+    with pytest.raises(ProfileError, match="internal bias"):
+        MeterBias(m)
