@@ -132,6 +132,13 @@ class LCRMeter(Instrument):
     bias_current_A = Setting("DC bias current as the meter measures it.", type="float",
                              unit="A", read_only=True, optional="bias_monitor")
 
+    def _after_reconnect(self) -> None:
+        # As a supply does: re-apply the settings, the bias output state never (a meter that
+        # restarted comes back with its bias off, and the sweep must see that, not mask it).
+        for name, value in list(self._remembered.items()):
+            if name != "bias_on":
+                self._apply(type(self).declared_settings()[name], value)
+
     def _function_now(self) -> str:
         func = self._known.get("function")
         return func if func is not None else self.function

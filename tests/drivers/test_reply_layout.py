@@ -232,3 +232,23 @@ def test_the_visa_library_is_the_callers_choice(monkeypatch):
             s.open()
         assert asked[-1] == want and repr(want) in str(exc.value)
         assert "visa_library" in str(exc.value)
+
+
+def test_reconnect_reapplies_the_bias_voltage_but_never_switches_the_bias_on():
+    # as the supply driver: "the driver does not switch the output on by itself"
+    from instruments.sim.bench import ALT_METER_PROFILE
+
+    prof = load_profile(ALT_METER_PROFILE)
+    opening = [("@open", None), ("*IDN?", "Brackwater Dynamics,m,1,1"), ("*CLS", None)]
+    rm = FakeResourceManager(opening + [
+        ("BIAS:STATe OFF", None), ("BIAS:VOLTage 0", None), (ERR, OK),
+        ("BIAS:VOLTage 2.000000E+00", None), (ERR, OK),
+        ("BIAS:STATe ON", None), (ERR, OK),
+        *opening,                                  # reopened: *IDN?, *CLS
+        ("BIAS:VOLTage 2.000000E+00", None), (ERR, OK),
+        ("BIAS:VOLTage 0", None), ("BIAS:STATe OFF", None), ("*OPC?", "1")])
+    with LCRMeter(RES, profile=prof, rm=rm, backoff_s=0) as m:
+        m.bias_V = 2.0
+        m.bias_on = True
+        m.reconnect()
+    rm.assert_done()
