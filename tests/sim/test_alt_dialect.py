@@ -16,7 +16,7 @@ import pytest
 
 from instruments.clock import VirtualClock
 from instruments.drivers import InstrumentError, LCRMeter, Scanner
-from instruments.sim import SimBench
+from benchkit.commands.sim import demo_bench
 from instruments.sim.bench import ALT_METER_PROFILE
 from instruments.sim.physics import level_across_part_Vrms
 
@@ -26,7 +26,7 @@ R_SRC = 100.0   # the simulated meter's source resistance (COMMANDS.md)
 @pytest.fixture(scope="module")
 def alt():
     clock = VirtualClock()
-    with SimBench.demo(clock=clock, dialect="alt") as b:
+    with demo_bench(clock=clock, dialect="alt") as b:
         yield b, clock
 
 
@@ -96,7 +96,7 @@ def test_overload_comes_with_its_status(alt):
 def test_an_unknown_dialect_is_refused():
     from instruments.sim.bench import SimBenchError
     with pytest.raises(SimBenchError, match="dialect"):
-        SimBench.demo(dialect="klingon")
+        demo_bench(dialect="klingon")
 
 
 def test_the_alt_profile_speaks_the_documented_alt_commands():
