@@ -60,6 +60,12 @@ FLAGS = {
                  "(settle.max_prediction_u_pct_of_C0); C_std_F/sqrt(n_readings) is its standard uncertainty",
     "above_rated": "the plan took this sample above its part's rated voltage (limits.allow_above_rated, "
                    "confirmed by the operator); its later behaviour may not be the part's own",
+    "meter_status": "the meter's status field marked at least one reading as not good (a status the "
+                    "profile does not list in status_ok); those readings are left out",
+    "level_off_standard": "the AC level across the part was outside the standard level and its "
+                          "tolerance (IEC 60384-1: 1.0 +-0.2 Vrms, above 10 uF class 2 0.5 +-0.1 Vrms)",
+    "C_out_of_tolerance": "at 0 V the capacitance was outside the part's tolerance (IEC 60062 letter) "
+                          "but within a factor 2 of nominal: a finding, not a misreading",
     "retried": "an instrument exchange of this point needed a retry (no reply, a garbled or late reply, "
                "or a reconnect after a dropped link); run.json events 'link_recovered' say which",
 }
