@@ -169,8 +169,8 @@ def _meter_bias_source(meter: InstrumentRef, where: str) -> str:
     except ProfileError as exc:
         raise UserError(f"{where}: [instrument.meter]: {exc}") from None
     if not prof.may_use("internal_bias"):
-        raise UserError(f"{where}: no [instrument.supply], and the meter's profile '{prof.name}' "
-                        "has no internal bias the engine may use (bias_V, bias_on and "
+        raise UserError(f"{where}: missing table [instrument.supply], and the meter's profile "
+                        f"'{prof.name}' has no internal bias the engine may use (bias_V, bias_on and "
                         "[capabilities] engine_may_use, PROFILES.md); add a supply to the bench file")
     return "meter"
 

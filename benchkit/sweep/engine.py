@@ -124,12 +124,12 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
         elif row["temp_C"] is not None and \
                 abs(row["temp_C"] - self._ref_temp) > self.plan.limits["temp_tolerance_C"]:
             row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
-        with self.guard.transaction():  # a row is written whole or not at all
+        with self.guard.transaction():  # a row is written whole or not at all, and counted
             self.log.append_point(row)
+            self.done += 1
+            self.n_new += 1
         if sw.adaptive is not None:  # its planner needs the rows; other samples' stay on disk
             self._measured.setdefault(p.sample_id, []).append(row)
-        self.done += 1
-        self.n_new += 1
         if self.progress is not None:
             c = row["C_F"]
             ctext = "overload" if c is None else f"C = {c:.5g} F"

@@ -48,10 +48,11 @@ class LinkRecoveries:
 
                 res = getattr(self._raw["supply"], "resource", "?")
                 what = "supply" if role == "supply" else f"{role}'s internal bias"
+                noun = "supply" if role == "supply" else role
                 raise InstrumentError(
                     f"{what} ({res}): after reconnecting, its output reads off although the sweep "
-                    "had it on (the instrument may have restarted, or an interlock tripped); the "
-                    "sweep stops here: check it, its mains and interlock, then resume",
+                    f"had it on (the {noun} may have restarted, or an interlock tripped); the "
+                    f"sweep stops here: check the {noun}, its mains and interlock, then resume",
                     role=role, resource=res, command="OUTPut?")
         self._links = now
         return seen

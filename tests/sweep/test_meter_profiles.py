@@ -176,5 +176,5 @@ def test_a_bench_without_supply_needs_a_meter_with_internal_bias(tmp_path):
 
     with demo_bench(clock=VirtualClock()) as sim:
         bf = bench_file(tmp_path, sim, sim.resources["meter"], "generic-lcr", supply=False)
-        with pytest.raises(UserError, match="no \\[instrument.supply\\].*internal bias"):
+        with pytest.raises(UserError, match="missing table \\[instrument.supply\\].*internal bias"):
             load_bench(bf)
