@@ -47,6 +47,9 @@ def register(subparsers) -> None:
     sim.add_argument("--virtual-clock", action="store_true", help="run on a virtual clock: dwell and ramps take no real time")
     sim.add_argument("--clock-speed", type=float, metavar="K", help="with --virtual-clock: each clock second also waits 1/K real seconds")
     sim.add_argument("--seed", type=int, default=0, help="seed of the simulated noise (default 0)")
+    sim.add_argument("--sim-dialect", choices=("generic", "alt"), default="generic",
+                     help="the simulated meter's dialect: alt has a status field, level control and "
+                          "an internal bias (its bench names no supply); see instruments/COMMANDS.md")
     sim.add_argument("--fault", action="append", default=[], metavar="SPEC", help="inject a simulated fault, e.g. timeout:after=40 (repeatable)")
     p.set_defaults(func=run)
 
@@ -65,7 +68,7 @@ def _check_args(args) -> None:
         raise UserError("--plan PLAN.toml and --out RUN_DIR are needed (or --resume RUN_DIR)")
     if not args.sim:
         for name, v in (("--lot", args.lot), ("--virtual-clock", args.virtual_clock), ("--fault", args.fault),
-                        ("--fixture", args.fixture)):
+                        ("--fixture", args.fixture), ("--sim-dialect", args.sim_dialect != "generic")):
             if v:
                 raise UserError(
                     f"{name} works with --sim only"
@@ -83,7 +86,8 @@ def _make_clock(virtual: bool, speed: float | None):
     return VirtualClock(speed=speed) if virtual else RealClock()
 
 
-def _make_sim(lot: bool, seed: int, faults: list[str], clock, fixture: str | None = None):
+def _make_sim(lot: bool, seed: int, faults: list[str], clock, fixture: str | None = None,
+              dialect: str = "generic"):
     from benchkit.commands import sim as sim_command
     from instruments.sim import Fault, FaultSpecError, SimBenchError
 
@@ -97,8 +101,9 @@ def _make_sim(lot: bool, seed: int, faults: list[str], clock, fixture: str | Non
                 slots = load_fixture(fixture, parts)
             except PartsFileError as exc:
                 raise UserError(str(exc)) from None
-            return sim_command.sim_bench(parts, slots, clock=clock, faults=parsed, seed=seed)
-        return sim_command.demo_bench(clock=clock, faults=parsed, seed=seed, lot=lot)
+            return sim_command.sim_bench(parts, slots, clock=clock, faults=parsed, seed=seed,
+                                           dialect=dialect)
+        return sim_command.demo_bench(clock=clock, faults=parsed, seed=seed, lot=lot, dialect=dialect)
     except (FaultSpecError, SimBenchError) as exc:
         raise UserError(f"--sim: {exc}") from None
 
@@ -120,7 +125,7 @@ def run(args) -> int:
     clock = _make_clock(args.virtual_clock, args.clock_speed)
     record = {
         "parts_file": str(args.parts.resolve()) if args.parts else None,
-        "sim": {"lot": args.lot, "seed": args.seed, "faults": list(args.fault),
+        "sim": {"lot": args.lot, "seed": args.seed, "faults": list(args.fault), "dialect": args.sim_dialect,
                 "fixture": str(args.fixture.resolve()) if args.fixture else None,
                 "virtual_clock": args.virtual_clock, "clock_speed": args.clock_speed} if args.sim else None,
     }
@@ -128,7 +133,7 @@ def run(args) -> int:
         if args.lot and args.fixture:
             raise UserError("give --lot or --fixture, not both")
         bench = _make_sim(args.lot, args.seed, args.fault, clock,
-                          str(args.fixture) if args.fixture else None)
+                          str(args.fixture) if args.fixture else None, args.sim_dialect)
         with bench:
             result = sweep.run_sweep(bench, plan, args.out, clock, progress, parts=parts,
                                      io_timeout_s=args.io_timeout_s, extra_record=record,
@@ -158,7 +163,7 @@ def _resume(args, progress) -> int:
             raise UserError(f"{args.resume}: this run used the simulated bench (--sim); resume it without --bench")
         clock = _make_clock(bool(sim.get("virtual_clock")), sim.get("clock_speed"))
         bench = _make_sim(bool(sim.get("lot")), int(sim.get("seed") or 0), [], clock,  # faults are not re-armed
-                          sim.get("fixture"))
+                          sim.get("fixture"), sim.get("dialect") or "generic")
         with bench:
             result = sweep.resume_sweep(args.resume, bench, clock, progress, plan=plan, io_timeout_s=args.io_timeout_s,
                                         confirm_above_rated=_confirmation(args))

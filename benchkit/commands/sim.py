@@ -56,6 +56,9 @@ def register(subparsers) -> None:
                         help="bench time moves only by the meter's measurement time "
                              "(0.1 s per reading) instead of real time")
     parser.add_argument("--seed", type=int, default=0, help="seed of the simulated noise")
+    parser.add_argument("--dialect", choices=("generic", "alt"), default="generic",
+                        help="the meter's dialect: alt has a status field, level control and an "
+                             "internal bias, and its bench file names no supply (COMMANDS.md)")
     parser.set_defaults(func=run)
 
 
@@ -127,7 +130,7 @@ def _build_bench(args):
     clock = VirtualClock() if args.virtual_clock else RealClock()
     try:
         return SimBench(simulated, slots, clock=clock, host=args.host, base_port=args.port,
-                        faults=faults, seed=args.seed)
+                        faults=faults, seed=args.seed, dialect=args.dialect)
     except SimBenchError as exc:
         raise UserError(str(exc)) from None
 

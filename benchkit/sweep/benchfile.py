@@ -18,6 +18,7 @@ from benchkit.errors import UserError
 from benchkit.sweep.plan import MAX_CHANNEL, SampleRef
 from instruments.roles import ALL_ROLES, DEFAULT_PROFILES, OPTIONAL_ROLES, ROLES
 
+DEFAULT_VISA_LIBRARY = "@py"   # pyvisa-py; a lab's vendor VISA: "@ivi" or the library's path
 
 
 @dataclass(frozen=True)
@@ -26,9 +27,13 @@ class InstrumentRef:
     resource: str
     profile: str  # shipped profile name or absolute path of a profile file
     timeout_s: float | None = None
+    visa_library: str | None = None  # None: the bench file's
 
     def to_dict(self) -> dict:
-        return {"resource": self.resource, "profile": self.profile, "timeout_s": self.timeout_s}
+        out = {"resource": self.resource, "profile": self.profile, "timeout_s": self.timeout_s}
+        if self.visa_library is not None:
+            out["visa_library"] = self.visa_library
+        return out
 
 
 @dataclass(frozen=True)
@@ -36,10 +41,14 @@ class BenchFile:
     source: str
     instruments: Mapping[str, InstrumentRef]
     channels: tuple[SampleRef, ...] = field(default_factory=tuple)
+    visa_library: str = DEFAULT_VISA_LIBRARY
+    bias_source: str = "supply"  # "meter": no supply, the meter's internal bias biases the part
 
     def to_dict(self) -> dict:
         return {
             "source": self.source,
+            "visa_library": self.visa_library,
+            "bias_source": self.bias_source,
             "instruments": {r: i.to_dict() for r, i in self.instruments.items()},
             "channels": [{"channel": c.channel, "sample_id": c.sample_id, "part_id": c.part_id}
                          for c in self.channels],
@@ -69,20 +78,25 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
     """Validate a bench mapping (TOML layout, or the 'bench' record of run.json)."""
     if not isinstance(raw, Mapping):
         raise UserError(f"{where}: a bench must be a table with [instrument.*] and [[channel]]")
-    unknown = sorted(set(raw) - {"instrument", "instruments", "channel", "channels", "source", "kind"}, key=str)
+    unknown = sorted(set(raw) - {"instrument", "instruments", "channel", "channels", "source", "kind",
+                                 "visa_library", "bias_source"}, key=str)
     if unknown:
-        raise unknown_key(where, unknown[0], ("instrument", "channel"), "table")
+        raise unknown_key(where, unknown[0], ("instrument", "channel", "visa_library"), "table")
+    visa_library = _visa_library(raw.get("visa_library", DEFAULT_VISA_LIBRARY), where)
     inst_raw = raw.get("instrument", raw.get("instruments"))
     if not isinstance(inst_raw, Mapping):
         raise UserError(f"{where}: missing [instrument.meter], [instrument.supply], [instrument.scanner], [instrument.thermometer]")
     instruments: dict[str, InstrumentRef] = {}
     for role in ROLES + tuple(r for r in OPTIONAL_ROLES if r in inst_raw):  # a chamber is optional
         t = inst_raw.get(role)
+        if t is None and role == "supply":
+            continue   # no supply: the meter's internal bias (checked below)
         if not isinstance(t, Mapping):
             raise UserError(f"{where}: missing table [instrument.{role}] with resource = \"...\"")
-        extra = sorted(set(t) - {"resource", "profile", "timeout_s"}, key=str)
+        extra = sorted(set(t) - {"resource", "profile", "timeout_s", "visa_library"}, key=str)
         if extra:
-            raise unknown_key(f"{where}: [instrument.{role}]", extra[0], ("resource", "profile", "timeout_s"))
+            raise unknown_key(f"{where}: [instrument.{role}]", extra[0],
+                              ("resource", "profile", "timeout_s", "visa_library"))
         res = t.get("resource")
         if not isinstance(res, str) or not res.strip() or len(res) > 256:
             raise UserError(f"{where}: [instrument.{role}]: field 'resource' must be a VISA resource string, e.g. TCPIP0::127.0.0.1::5025::SOCKET")
@@ -97,7 +111,9 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
                                 or not 0 < tmo <= 600):
             raise UserError(f"{where}: [instrument.{role}]: field 'timeout_s' must be a positive number "
                             "of seconds, at most 600")
-        instruments[role] = InstrumentRef(role, res.strip(), prof, None if tmo is None else float(tmo))
+        lib = t.get("visa_library")
+        lib = None if lib is None else _visa_library(lib, f"{where}: [instrument.{role}]")
+        instruments[role] = InstrumentRef(role, res.strip(), prof, None if tmo is None else float(tmo), lib)
     extra_roles = sorted(set(inst_raw) - set(ALL_ROLES), key=str)
     if extra_roles:
         raise unknown_key(where, extra_roles[0], ALL_ROLES, "instrument role")
@@ -131,7 +147,32 @@ def bench_from_dict(raw: Mapping[str, Any], where: str, base_dir: Path | None = 
         seen_ch.add(ch)
         seen_id.add(sid)
         channels.append(SampleRef(sid, pid, ch, None if age is None else float(age)))
-    return BenchFile(where, instruments, tuple(sorted(channels, key=lambda s: s.channel)))
+    bias_source = "supply" if "supply" in instruments else _meter_bias_source(instruments["meter"], where)
+    return BenchFile(where, instruments, tuple(sorted(channels, key=lambda s: s.channel)),
+                     visa_library, bias_source)
+
+
+def _visa_library(value: Any, where: str) -> str:
+    if not isinstance(value, str) or not value.strip() or "\n" in value:
+        raise UserError(f"{where}: visa_library must name a VISA library: \"@py\" (pyvisa-py, the "
+                        "default), \"@ivi\" (the vendor VISA installed here) or a library's path")
+    return value.strip()
+
+
+def _meter_bias_source(meter: InstrumentRef, where: str) -> str:
+    """A bench without a supply biases with the meter: its profile must allow it."""
+    from instruments.drivers import load_profile
+    from instruments.drivers.errors import ProfileError
+
+    try:
+        prof = load_profile(meter.profile, kind="lcr-meter")
+    except ProfileError as exc:
+        raise UserError(f"{where}: [instrument.meter]: {exc}") from None
+    if not prof.may_use("internal_bias"):
+        raise UserError(f"{where}: missing table [instrument.supply], and the meter's profile "
+                        f"'{prof.name}' has no internal bias the engine may use (bias_V, bias_on and "
+                        "[capabilities] engine_may_use, PROFILES.md); add a supply to the bench file")
+    return "meter"
 
 
 def check_resource_string(resource: str, where: str) -> None:
@@ -175,31 +216,49 @@ class Instruments:
             ref = self.refs.get(role)
             out[role] = {
                 "resource": ref.resource if ref else getattr(drv, "resource", None),
-                "profile": ref.profile if ref else None,
+                "profile": ref.profile if ref else getattr(getattr(drv, "profile", None), "source", None),
                 "idn": getattr(drv, "idn", None),
             }
+            if hasattr(drv, "meter"):   # MeterBias: the bias source is the meter's own
+                out[role]["bias_source"] = "meter internal bias"
         return out
 
 
 @contextlib.contextmanager
 def open_instruments(bench: BenchFile, timeout_s: float | None = None):
-    """Open and identify all four instruments; bad address or silence -> UserError."""
+    """Open and identify all four instruments; bad address or silence -> UserError.
+
+    Each instrument is reached through its VISA library (its own visa_library, else the bench
+    file's); a bench without a supply gets the meter's internal bias as its bias source.
+    """
     import pyvisa
 
-    from instruments.drivers import BiasSupply, LCRMeter, Scanner, TemperatureChamber, Thermometer
+    from instruments.drivers import BiasSupply, LCRMeter, MeterBias, Scanner, TemperatureChamber, Thermometer
 
     classes = {"meter": LCRMeter, "supply": BiasSupply, "scanner": Scanner, "thermometer": Thermometer,
                "chamber": TemperatureChamber}
     with contextlib.ExitStack() as stack:
-        try:
-            rm = pyvisa.ResourceManager("@py")
-        except Exception as exc:  # pragma: no cover - installation problem
-            raise UserError(f"cannot start the pyvisa-py backend ({exc}); check the installation") from None
-        stack.callback(_close_quietly, rm)
+        managers: dict[str, Any] = {}
+
+        def manager(lib: str, role: str):
+            if lib not in managers:
+                try:
+                    managers[lib] = pyvisa.ResourceManager(lib)
+                except Exception as exc:
+                    raise UserError(f"{bench.source}: [instrument.{role}]: VISA library {lib!r} did not "
+                                    f"load ({_one_line(exc)}); check visa_library in the bench file "
+                                    "(\"@py\" is pyvisa-py) and that this library is installed") from None
+                stack.callback(_close_quietly, managers[lib])
+            return managers[lib]
+
         opened: dict[str, Any] = {}
-        for role in (r for r in ALL_ROLES if r in bench.instruments):
+        for role in (r for r in ALL_ROLES if r in bench.instruments or (r == "supply" and bench.bias_source == "meter")):
+            if role == "supply" and bench.bias_source == "meter":
+                opened[role] = stack.enter_context(MeterBias(opened["meter"]))
+                continue
             ref = bench.instruments[role]
             tmo = ref.timeout_s if ref.timeout_s is not None else timeout_s
+            rm = manager(ref.visa_library or bench.visa_library, role)
             kwargs = {"profile": ref.profile, "rm": rm, "role": role}
             if tmo is not None:
                 kwargs["timeout_s"] = tmo

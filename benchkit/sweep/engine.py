@@ -16,7 +16,9 @@ from benchkit.sweep.dwell import dwell_policy
 from benchkit.sweep.frequency import FrequencyList, is_frequency_row
 from benchkit.sweep.passes import AdaptivePasses
 from benchkit.sweep.plan import Plan, PlannedPoint, SampleSweep
+from benchkit.catalogue.conditions import standard_conditions
 from benchkit.sweep.point import PointMeasurement
+from benchkit.sweep.readings import Expected, may_use
 from benchkit.sweep.recovery import LinkRecoveries
 from benchkit.sweep.runlog import RunLog, join_flags
 from benchkit.sweep.safety import Guarded, GuardedClock, SignalGuard
@@ -155,8 +157,12 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
         self.scanner.select(sw.sample.channel)  # opens all, then closes one: break before make
         self.meter.function = c.function
         self.meter.freq_Hz = c.freq_Hz
+        if may_use(self._raw["meter"], "level_control"):   # the set level is the part's level
+            self.meter.level_control_on = True
         self.meter.ac_level_Vrms = c.ac_level_Vrms
         self.meter.check_errors()
+        self._expected = Expected.of_part(sw.part)
+        self._standard = standard_conditions(sw.part.class_code, sw.part.nominal_C_F)
         if not self.output_on:
             self.supply.voltage_V = 0.0
             self.supply.output_on = True

@@ -34,8 +34,11 @@ def bench_ranges(src: Any) -> BenchRanges:
     bench = getattr(src, "bench", None)
     if bench is not None:
         try:
-            supply = load_profile(bench.instruments["supply"].profile, kind="dc-supply")
             scanner = load_profile(bench.instruments["scanner"].profile, kind="scanner")
+            if getattr(bench, "bias_source", "supply") == "meter":   # the meter's internal bias
+                meter = load_profile(bench.instruments["meter"].profile, kind="lcr-meter")
+                return BenchRanges(_setting_range(meter, "bias_V"), None, _channel_range(scanner))
+            supply = load_profile(bench.instruments["supply"].profile, kind="dc-supply")
         except ProfileError as exc:
             raise UserError(" ".join(str(exc).split())) from None
     else:  # open drivers: their profiles

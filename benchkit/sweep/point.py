@@ -15,6 +15,7 @@ import math
 import numpy as np
 
 from benchkit.sweep.plan import Plan, PlannedPoint, SampleSweep
+from benchkit.sweep.readings import check_point, level_flags, may_use
 from benchkit.sweep.runlog import join_flags, utc_now
 
 CURRENT_LIMIT_FRACTION = 0.98  # |I| at or above this share of the limit: the supply is limiting
@@ -30,7 +31,7 @@ class PointMeasurement:
         t_reached = self.clock.now()
         self._dwell_readings = []
         settle = self.policy.wait(self.gclock, lambda: self._probe(cond))
-        values, times, overload = [], [], False
+        values, times, overload, bad_status = [], [], False, False
         pred = getattr(settle, "prediction", None)
         if pred is not None:  # the readings the prediction was made from
             t_fit = settle.fit_from_s
@@ -40,13 +41,14 @@ class PointMeasurement:
         for _ in range(0 if pred is not None else plan.n_readings):
             r = self.meter.measure()
             t = self.clock.now()
-            if r.overload:
-                overload = True
+            if r.overload or not getattr(r, "status_ok", True):
+                overload = overload or r.overload
+                bad_status = bad_status or not r.overload
                 continue
             values.append(_convert(r.primary, r.secondary, cond.function, cond.freq_Hz))
             times.append(t)
         t_first = times[0] if times else self.clock.now()
-        ac_dut = self.meter.ac_dut_Vrms
+        ac_dut = self.meter.ac_dut_Vrms if may_use(self._raw["meter"], "level_monitor") else None
         v_meas = self.supply.measured_voltage_V
         i_meas = self.supply.measured_current_A
         temp = self.thermo.temperature_C
@@ -57,6 +59,10 @@ class PointMeasurement:
             flags.append("current_limit")
         if overload:
             flags.append("overload")
+        if bad_status:
+            flags.append("meter_status")
+        off_level = level_flags(ac_dut, self._standard.ac_level_Vrms)
+        flags += off_level
         if resumed:
             flags.append("resumed")
         if self._note_recoveries():
@@ -65,6 +71,12 @@ class PointMeasurement:
         arr = np.array(values) if values else np.empty((0, 3))
         C = float(arr[:, 0].mean()) if len(arr) else None
         C_std = float(arr[:, 0].std(ddof=1)) if len(arr) >= 2 else None
+        if len(arr):   # believed only if it can be this part (stops the run if not)
+            secondary = arr[:, 2] if cond.function == "CSRS" else arr[:, 1]
+            flags += check_point(self._expected, p.bias_V, C, float(arr[:, 1].mean()),
+                                 float(secondary.mean()), cond.function,
+                                 getattr(getattr(self._raw["meter"], "profile", None), "name", "?"),
+                                 at_standard=ac_dut is not None and not off_level)
         if pred is not None and len(arr):
             C, C_std = pred.C_inf_F, pred.u_C_inf_F * math.sqrt(len(arr))
             flags.append("predicted")
@@ -86,7 +98,7 @@ class PointMeasurement:
             "function": cond.function,
             "freq_Hz": cond.freq_Hz,
             "ac_level_set_Vrms": cond.ac_level_Vrms,
-            "ac_level_dut_Vrms": float(ac_dut),
+            "ac_level_dut_Vrms": None if ac_dut is None else float(ac_dut),
             "C_F": C,
             "C_std_F": C_std,
             "D": float(arr[:, 1].mean()) if len(arr) else None,
@@ -107,7 +119,7 @@ class PointMeasurement:
     def _probe(self, cond) -> float:
         """One reading for the dwell policy (kept, with its time, for a predicting one)."""
         r = self.meter.measure()
-        if r.overload:
+        if r.overload or not getattr(r, "status_ok", True):
             self._dwell_readings.append((self.clock.now(), None))
             return math.nan  # a dwell policy leaves it out
         v = _convert(r.primary, r.secondary, cond.function, cond.freq_Hz)

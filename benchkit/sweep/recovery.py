@@ -11,8 +11,12 @@ class LinkRecoveries:
 
     def _link_counts(self) -> dict:
         out = {}
+        seen: set[int] = set()
         for role, drv in self._raw.items():
             session = getattr(drv, "session", None)
+            if session is not None and id(session) in seen:
+                continue   # the meter's internal bias shares the meter's link: count it once
+            seen.add(id(session))
             counters = getattr(session, "counters", None)
             if counters is not None:
                 out[role] = (dict(counters), list(getattr(session, "events", ())))
@@ -36,14 +40,19 @@ class LinkRecoveries:
             new = events[len(old_events):] if len(events) > len(old_events) else events[-5:]
             self.log.event(self.t_s(), "link_recovered", role=role, at=self.where(), **delta,
                            detail=new[-10:])
-            if role == "supply" and delta.get("reconnects") and self.output_on and not self.supply.output_on:
+            bias_link = getattr(self._raw["supply"], "session", None)
+            is_bias = role == "supply" or (bias_link is not None and
+                                           getattr(self._raw[role], "session", None) is bias_link)
+            if is_bias and delta.get("reconnects") and self.output_on and not self.supply.output_on:
                 from instruments.drivers.errors import InstrumentError
 
                 res = getattr(self._raw["supply"], "resource", "?")
+                what = "supply" if role == "supply" else f"{role}'s internal bias"
+                noun = "supply" if role == "supply" else role
                 raise InstrumentError(
-                    f"supply ({res}): after reconnecting, its output reads off although the sweep "
-                    "had it on (the supply may have restarted, or an interlock tripped); the sweep "
-                    "stops here: check the supply, its mains and interlock, then resume",
-                    role="supply", resource=res, command="OUTPut?")
+                    f"{what} ({res}): after reconnecting, its output reads off although the sweep "
+                    f"had it on (the {noun} may have restarted, or an interlock tripped); the "
+                    f"sweep stops here: check the {noun}, its mains and interlock, then resume",
+                    role=role, resource=res, command="OUTPut?")
         self._links = now
         return seen

@@ -33,6 +33,7 @@ from benchkit.sweep.resume import (
     check_against_record, check_prefix, replay_adaptive, resume_catalogue, samples_from_meta,
 )
 from benchkit.sweep.summary import final_state_line, sample_lines, summary_record, supply_final_state
+from benchkit.sweep.readings import capability_record
 from benchkit.sweep.runlog import FLAGS, RunFileError, RunLog, utc_now
 from benchkit.sweep.safety import Interrupted, SignalGuard, arm_last_resort, disarm_last_resort
 from benchkit.sweep.sources import BenchSource
@@ -243,6 +244,8 @@ def _new_meta(plan, sweeps, inst, src, clock, wait_s, wait_how, extra) -> dict:
         "plan_sha256": plan.sha256,
         "plan_source": plan.source,
         "instruments": inst.record(),
+        "bias_source": "meter" if hasattr(inst.supply, "meter") else "supply",
+        "meter_capabilities": capability_record(inst.meter, hasattr(inst.supply, "meter")),
         "bench": src.record(),
         "samples": [
             {

@@ -256,11 +256,19 @@ def fit_conditions(meta: dict, rows: list[dict]) -> dict:
         return float(np.median(vals)) if vals.size else None
 
     functions = sorted({r["function"] for r in rows if r["function"]})
-    freq, level, temp = median("freq_Hz"), median("ac_level_set_Vrms"), column(rows, "temp_C")
+    freq, temp = median("freq_Hz"), column(rows, "temp_C")
+    # the level the part saw, when the meter measured it; else the set (open-circuit) level
+    level, level_source = median("ac_level_dut_Vrms"), "level across the part (median of the points)"
+    if level is None:
+        level = median("ac_level_set_Vrms")
+        level_source = "set level (no level across the part recorded)"
+    if level is None:
+        level, level_source = cond.get("ac_level_Vrms"), "set level (run.json conditions)"
     t = temp[np.isfinite(temp)]
     return {
         "freq_Hz": freq if freq is not None else cond.get("freq_Hz"),
-        "ac_level_Vrms": level if level is not None else cond.get("ac_level_Vrms"),
+        "ac_level_Vrms": level,
+        "ac_level_source": level_source,
         "temp_C": float(np.mean(t)) if t.size else None,
         "function": functions[0] if len(functions) == 1 else cond.get("function"),
     }

@@ -62,6 +62,12 @@ FLAGS = {
                    "confirmed by the operator); its later behaviour may not be the part's own",
     "freq_list": "a row of the plan's frequency list at this bias point (benchkit/sweep/frequency.py): "
                  "C_F, Rs_ohm, D of the (corrected) impedance at freq_Hz, not a point of the C(V) sweep",
+    "meter_status": "the meter's status field marked at least one reading as not good (a status the "
+                    "profile does not list in status_ok); those readings are left out",
+    "level_off_standard": "the AC level across the part was outside the standard level and its "
+                          "tolerance (IEC 60384-1: 1.0 +-0.2 Vrms, above 10 uF class 2 0.5 +-0.1 Vrms)",
+    "C_out_of_tolerance": "at 0 V the capacitance was outside the part's tolerance (IEC 60062 letter) "
+                          "but within a factor 2 of nominal: a finding, not a misreading",
     "retried": "an instrument exchange of this point needed a retry (no reply, a garbled or late reply, "
                "or a reconnect after a dropped link); run.json events 'link_recovered' say which",
 }

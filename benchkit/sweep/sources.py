@@ -43,10 +43,11 @@ class BenchSource:
             yield inst
 
     def supply_range_V(self) -> tuple[float, float] | None:
-        ref = None if self.bench is None else self.bench.instruments["supply"]
-        if ref is None:
+        if self.bench is None:
             return _range_of(self.instruments.supply) if self.instruments else None
-        return supply_profile_range(ref.profile)
+        if self.bench.bias_source == "meter":
+            return meter_bias_range(self.bench.instruments["meter"].profile)
+        return supply_profile_range(self.bench.instruments["supply"].profile)
 
     def record(self) -> dict:
         if self.bench is None:
@@ -66,6 +67,21 @@ def supply_profile_range(profile: str) -> tuple[float, float] | None:
     except ProfileError as exc:
         raise UserError(str(exc)) from None
     spec = prof.settings.get("voltage_V")
+    if spec is None or spec.min is None or spec.max is None:
+        return None
+    return float(spec.min), float(spec.max)
+
+
+def meter_bias_range(profile: str) -> tuple[float, float] | None:
+    """The internal bias range a meter profile declares (setting bias_V): the bias limits."""
+    from instruments.drivers import load_profile
+    from instruments.drivers.errors import ProfileError
+
+    try:
+        prof = load_profile(profile, kind="lcr-meter")
+    except ProfileError as exc:
+        raise UserError(str(exc)) from None
+    spec = prof.settings.get("bias_V")
     if spec is None or spec.min is None or spec.max is None:
         return None
     return float(spec.min), float(spec.max)

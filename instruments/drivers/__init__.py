@@ -15,6 +15,7 @@ from .errors import (InstrumentError, InstrumentLinkError, InstrumentTimeout,
                      InvalidValueError, ProfileError, UnsafeCommandError)
 from .instrument import Instrument, check_profile_matches
 from .lcr_meter import FUNCTIONS, LCRMeter, Reading
+from .meter_bias import MeterBias
 from .profile import PROFILE_DIR, Profile, load_profile, shipped_profiles
 from .scanner import Scanner
 from .session import Session, normalise_resource
@@ -26,7 +27,7 @@ DRIVERS = {"lcr-meter": LCRMeter, "dc-supply": BiasSupply, "scanner": Scanner,
 
 __all__ = [
     "BiasSupply", "DRIVERS", "FUNCTIONS", "Instrument", "InstrumentError",
-    "InstrumentLinkError", "InstrumentTimeout", "InvalidValueError", "LCRMeter",
+    "InstrumentLinkError", "InstrumentTimeout", "InvalidValueError", "LCRMeter", "MeterBias",
     "PROFILE_DIR", "Profile", "ProfileError", "Reading", "Scanner", "Session", "Setting",
     "TemperatureChamber", "Thermometer", "UnsafeCommandError", "check_profile_matches", "load_profile",
     "normalise_resource", "shipped_profiles",

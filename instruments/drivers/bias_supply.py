@@ -18,76 +18,12 @@ from .setting import Setting, check_float
 _RATE_MARGIN = 1.0 + 1e-9   # sleep a hair longer than |dV|/rate so the rate is never exceeded
 
 
-class BiasSupply(Instrument):
-    """A programmable DC supply reached by any VISA resource string, spelled by its profile.
+class RampedOutput:
+    """Ramping and the safe shutdown, shared by every bias source (a supply, a meter's own).
 
-    Leaving the `with` block calls safe_off() (ramping down at the rate and on the clock of
-    the last ramp_to, if there was one) before closing; an interpreter exit with the session
-    still open does the same as a last resort. After a reconnect the current limit and the
-    programmed voltage are re-applied, the output state never: the driver does not switch
-    the output on by itself.
+    The host provides voltage_V and output_on (properties), role, resource, is_open, open(),
+    and _validate_voltage(value, what) with the source's limits.
     """
-
-    kind = "dc-supply"
-    default_profile = "generic-dc-supply"
-    default_role = "supply"
-
-    voltage_V = Setting("Programmed output voltage. Setting it jumps; use ramp_to() to move "
-                        "a bias.", type="float", unit="V")
-    current_limit_A = Setting("Current limit: protects the part and the fixture when a part "
-                              "fails short.", type="float", unit="A")
-    output_on = Setting("Output relay state.", type="bool")
-    measured_voltage_V = Setting("Terminal voltage as measured by the supply (sags below the "
-                                 "set value in current limit).", type="float", unit="V",
-                                 read_only=True)
-    measured_current_A = Setting("Output current: charging plus leakage of the connected "
-                                 "part.", type="float", unit="A", read_only=True)
-
-    def __init__(self, *args: Any, **kwargs: Any):
-        super().__init__(*args, **kwargs)
-        self.last_safe_off_error: str | None = None
-        self.last_ramp: list[tuple[float, float]] = []
-        self._exit_clock: Any = None
-        self._exit_rate: float | None = None
-        self._atexit_registered = False
-
-    @property
-    def voltage_range_V(self) -> tuple[float, float]:
-        spec = self.profile.settings["voltage_V"]
-        return spec.min, spec.max
-
-    # -- lifecycle -------------------------------------------------------------------------
-
-    def open(self) -> "BiasSupply":
-        super().open()
-        if not self._atexit_registered:
-            atexit.register(self._at_exit)
-            self._atexit_registered = True
-        return self
-
-    def close(self) -> None:
-        if self._atexit_registered:
-            atexit.unregister(self._at_exit)
-            self._atexit_registered = False
-        super().close()
-
-    def __exit__(self, *exc: Any) -> None:
-        try:
-            self.safe_off(self._exit_clock, self._exit_rate)
-        finally:
-            self.close()
-
-    def _at_exit(self) -> None:
-        if self.is_open:
-            self.safe_off(self._exit_clock, self._exit_rate)
-            self.close()
-
-    def _after_reconnect(self) -> None:
-        # The current limit first, then the programmed voltage (a set lost with the link
-        # would make the next ramp step a double one); never the output state.
-        for name in ("current_limit_A", "voltage_V"):
-            if name in self._remembered:
-                self._apply(type(self).declared_settings()[name], self._remembered[name])
 
     # -- ramping ---------------------------------------------------------------------------
 
@@ -101,8 +37,7 @@ class BiasSupply(Instrument):
         starting point first; kept in .last_ramp.
         """
         what = f"{self.role} ({self.resource})"
-        spec = self.profile.settings["voltage_V"]
-        target = type(self).voltage_V.validate(spec, target_V, f"{what}: ramp target_V")
+        target = self._validate_voltage(target_V, f"{what}: ramp target_V")
         rate = check_float(max_rate_V_per_s, 0.0, math.inf, f"{what}: max_rate_V_per_s", "V/s")
         step = check_float(max_step_V, 0.0, math.inf, f"{what}: max_step_V", "V")
         if rate <= 0 or step <= 0:
@@ -189,6 +124,81 @@ class BiasSupply(Instrument):
         if interrupted is not None:
             raise interrupted
         return False
+
+
+class BiasSupply(RampedOutput, Instrument):
+    """A programmable DC supply reached by any VISA resource string, spelled by its profile.
+
+    Leaving the `with` block calls safe_off() (ramping down at the rate and on the clock of
+    the last ramp_to, if there was one) before closing; an interpreter exit with the session
+    still open does the same as a last resort. After a reconnect the current limit and the
+    programmed voltage are re-applied, the output state never: the driver does not switch
+    the output on by itself.
+    """
+
+    kind = "dc-supply"
+    default_profile = "generic-dc-supply"
+    default_role = "supply"
+
+    voltage_V = Setting("Programmed output voltage. Setting it jumps; use ramp_to() to move "
+                        "a bias.", type="float", unit="V")
+    current_limit_A = Setting("Current limit: protects the part and the fixture when a part "
+                              "fails short.", type="float", unit="A")
+    output_on = Setting("Output relay state.", type="bool")
+    measured_voltage_V = Setting("Terminal voltage as measured by the supply (sags below the "
+                                 "set value in current limit).", type="float", unit="V",
+                                 read_only=True)
+    measured_current_A = Setting("Output current: charging plus leakage of the connected "
+                                 "part.", type="float", unit="A", read_only=True)
+
+    def __init__(self, *args: Any, **kwargs: Any):
+        super().__init__(*args, **kwargs)
+        self.last_safe_off_error: str | None = None
+        self.last_ramp: list[tuple[float, float]] = []
+        self._exit_clock: Any = None
+        self._exit_rate: float | None = None
+        self._atexit_registered = False
+
+    @property
+    def voltage_range_V(self) -> tuple[float, float]:
+        spec = self.profile.settings["voltage_V"]
+        return spec.min, spec.max
+
+    def _validate_voltage(self, value: Any, what: str) -> float:
+        return type(self).voltage_V.validate(self.profile.settings["voltage_V"], value, what)
+
+    # -- lifecycle -------------------------------------------------------------------------
+
+    def open(self) -> "BiasSupply":
+        super().open()
+        if not self._atexit_registered:
+            atexit.register(self._at_exit)
+            self._atexit_registered = True
+        return self
+
+    def close(self) -> None:
+        if self._atexit_registered:
+            atexit.unregister(self._at_exit)
+            self._atexit_registered = False
+        super().close()
+
+    def __exit__(self, *exc: Any) -> None:
+        try:
+            self.safe_off(self._exit_clock, self._exit_rate)
+        finally:
+            self.close()
+
+    def _at_exit(self) -> None:
+        if self.is_open:
+            self.safe_off(self._exit_clock, self._exit_rate)
+            self.close()
+
+    def _after_reconnect(self) -> None:
+        # The current limit first, then the programmed voltage (a set lost with the link
+        # would make the next ramp step a double one); never the output state.
+        for name in ("current_limit_A", "voltage_V"):
+            if name in self._remembered:
+                self._apply(type(self).declared_settings()[name], self._remembered[name])
 
 
 class _GiveUp(Exception):

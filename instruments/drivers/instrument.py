@@ -29,7 +29,8 @@ def check_profile_matches(cls: type["Instrument"], profile: Profile) -> None:
     if profile.kind != cls.kind:
         raise ProfileError(f"{where} is for a {profile.kind}, not a {cls.kind} ({cls.__name__})")
     declared = cls.declared_settings()
-    missing = sorted(set(declared) - set(profile.settings))
+    missing = sorted(n for n in set(declared) - set(profile.settings)
+                     if not declared[n].optional)
     unknown = sorted(set(profile.settings) - set(declared))
     if missing:
         raise ProfileError(f"{where}: missing [setting.{missing[0]}] (a {cls.__name__} needs "
@@ -38,6 +39,8 @@ def check_profile_matches(cls: type["Instrument"], profile: Profile) -> None:
         raise ProfileError(f"{where}: unknown [setting.{unknown[0]}]; a {cls.__name__} knows "
                            f"{', '.join(sorted(declared)) or 'no settings'}")
     for name, s in declared.items():
+        if name not in profile.settings:
+            continue
         spec = profile.settings[name]
         if spec.type != s.type:
             raise ProfileError(f"{where}: [setting.{name}] type must be {s.type!r}")
@@ -60,7 +63,8 @@ class Instrument:
     def __init__(self, resource: str, profile: str | Path | Profile | None = None, *,
                  timeout_s: float | None = None, rm: Any = None, role: str | None = None,
                  open_timeout_s: float = 2.0, retries: int = 2, reconnects: int = 2,
-                 backoff_s: float = 0.05, drain_timeout_s: float = 0.05):
+                 backoff_s: float = 0.05, drain_timeout_s: float = 0.05,
+                 visa_library: str | None = None):
         self.role = role or self.default_role
         if isinstance(profile, Profile):
             prof = profile
@@ -76,7 +80,7 @@ class Instrument:
             open_timeout_s=open_timeout_s, rm=rm, retries=retries, reconnects=reconnects,
             backoff_s=backoff_s, drain_timeout_s=drain_timeout_s, serial=dict(prof.serial),
             common={k: t.text for k, t in prof.common.items()},
-            on_reconnect=self._on_reconnect)
+            on_reconnect=self._on_reconnect, visa_library=visa_library)
         self._remembered: dict[str, Any] = {}   # values set through this driver, in order
         self._known: dict[str, Any] = {}        # last value set or read back
 
@@ -117,7 +121,20 @@ class Instrument:
         return self
 
     def close(self) -> None:
-        self.session.close()
+        """Send the profile's shutdown commands (best effort), then close the link."""
+        try:
+            if self.session.is_open and self.profile.shutdown:
+                for cmd in self.profile.shutdown:
+                    try:
+                        self.session.write(cmd.format())
+                    except Exception:
+                        pass
+                try:   # *OPC?: done before the link closes (IEEE 488.2 10.19)
+                    self.session.query(self.profile.common["operation_complete"].text)
+                except Exception:
+                    pass
+        finally:
+            self.session.close()
 
     def __enter__(self):
         self.open()
@@ -131,7 +148,17 @@ class Instrument:
         self.session.reconnect()
 
     def _configure(self) -> None:
-        """Hook: driver-specific configuration right after opening."""
+        """Right after opening: the profile's setup commands (the error queue is read next)."""
+        for cmd in self.profile.setup:
+            self.session.write(cmd.format())
+
+    def has(self, capability: str) -> bool:
+        """The profile spells this optional capability (e.g. 'level_monitor')."""
+        return self.profile.has(capability)
+
+    def may_use(self, capability: str) -> bool:
+        """The profile spells this capability and lets the engine use it."""
+        return self.profile.may_use(capability)
 
     def _on_reconnect(self) -> None:
         # values only read back may have changed (the instrument may have restarted)
@@ -173,14 +200,23 @@ class Instrument:
     def _what(self, setting: Setting) -> str:
         return f"{self.role} ({self.resource}): {setting.name} (profile '{self.profile.name}')"
 
+    def _spec(self, setting: Setting):
+        spec = self.profile.settings.get(setting.name)
+        if spec is None:
+            raise ProfileError(
+                f"{self._what(setting)}: this instrument's profile does not spell "
+                f"{setting.name} (optional capability {setting.optional}); add "
+                f"[setting.{setting.name}] to the profile if the instrument has it")
+        return spec
+
     def _get_setting(self, setting: Setting) -> Any:
-        spec = self.profile.settings[setting.name]
+        spec = self._spec(setting)
         value = self.session.query(spec.query.format(), parse=lambda r: setting.parse(spec, r))
         self._known[setting.name] = value
         return value
 
     def _set_setting(self, setting: Setting, value: Any) -> None:
-        spec = self.profile.settings[setting.name]
+        spec = self._spec(setting)
         v = setting.validate(spec, value, self._what(setting))   # before anything is written
         self._apply(setting, v)
 
@@ -211,4 +247,4 @@ class Instrument:
         """Every settable setting, queried now (for the run record; readings excluded, as
         some need a measurement first)."""
         return {name: getattr(self, name) for name, s in self.declared_settings().items()
-                if not s.read_only}
+                if not s.read_only and name in self.profile.settings}

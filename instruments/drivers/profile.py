@@ -88,10 +88,21 @@ class CommandTemplate:
         self.is_query = header.endswith("?")
         self.fields = tuple(n for n, _ in fields)
         self.specs = dict(fields)
+        self._parts = parts
 
     def format(self, **values: Any) -> str:
         """Fill the placeholders with already validated values and check the result."""
         return check_command_text(self.text.format(**values), self.text)
+
+    def fill(self, **texts: str) -> str:
+        """Put already formatted text into the placeholders (their format specs ignored)."""
+        out = []
+        for literal, name, _spec, _conv in self._parts:
+            out.append(literal)
+            if name is not None:
+                out.append(texts[name])
+        return check_command_text(self.header + (" " + "".join(out) if out else ""),
+                                  self.text)
 
     def __repr__(self) -> str:
         return f"CommandTemplate({self.text!r})"
@@ -139,18 +150,65 @@ class Profile:
     settings: Mapping[str, SettingSpec]
     commands: Mapping[str, CommandTemplate]
     options: Mapping[str, Any]
+    setup: tuple[CommandTemplate, ...] = ()
+    shutdown: tuple[CommandTemplate, ...] = ()
+    capabilities: Mapping[str, bool] = field(default_factory=dict)  # present -> engine may use
+    reply: "ReplyLayout | None" = None
+
+    def has(self, capability: str) -> bool:
+        """The instrument has this optional capability (its settings/commands are spelled)."""
+        return capability in self.capabilities
+
+    def may_use(self, capability: str) -> bool:
+        """The instrument has it and the profile lets the engine use it."""
+        return bool(self.capabilities.get(capability, False))
+
+
+REPLY_FIELDS = ("primary", "secondary", "status", "ignore")
+REPLY_SEPARATORS = (",", ";", " ", "\t")
+UNIT_MODES = ("none", "suffix")
+
+
+@dataclass(frozen=True)
+class ReplyLayout:
+    """How a measurement reply is laid out: fields in order, separator, status, units."""
+
+    fields: tuple[str, ...] = ("primary", "secondary")
+    separator: str = ","
+    status_ok: tuple[str, ...] = ()
+    status_overload: tuple[str, ...] = ()
+    units: str = "none"
+
+    @property
+    def picture(self) -> str:
+        return self.separator.join(f"<{f}>" for f in self.fields)
 
 
 # --------------------------------------------------------------------------------------------
 # loading
 
-_TOP_KEYS = {"profile", "link", "common", "setting", "measure", "route"}
+_TOP_KEYS = {"profile", "link", "common", "setting", "measure", "route", "sequence",
+             "capabilities", "list"}
 _PROFILE_KEYS = {"name", "kind", "description", "base"}
 _LINK_KEYS = {"read_termination", "write_termination", "timeout_s", "baud_rate", "data_bits",
               "parity", "stop_bits"}
 _SETTING_KEYS = {"type", "query", "set", "read_only", "min", "max", "values", "map", "true",
                  "false", "doc"}
-_MEASURE_KEYS = {"mode", "trigger", "fetch", "read", "overload_above"}
+_MEASURE_KEYS = {"mode", "trigger", "fetch", "read", "overload_above", "reply"}
+_REPLY_KEYS = {"fields", "separator", "status_ok", "status_overload", "units"}
+_SEQUENCE_KEYS = {"setup", "shutdown"}
+_LIST_KEYS = {"freq", "bias", "trigger", "fetch", "max_points"}
+
+# Optional capabilities per kind: what must be spelled for each to be present.
+CAPABILITIES = {
+    "lcr-meter": {
+        "level_monitor": ("setting", ("ac_dut_Vrms",)),
+        "level_control": ("setting", ("level_control_on",)),
+        "internal_bias": ("setting", ("bias_V", "bias_on")),
+        "bias_monitor": ("setting", ("bias_measured_V", "bias_current_A")),
+        "list_sweep": ("list", ()),
+    },
+}
 _ROUTE_KEYS = {"first_channel", "last_channel", "open_all", "close", "open", "is_closed"}
 
 
@@ -303,11 +361,99 @@ def _build(raw: dict, src: str) -> Profile:
     elif "route" in raw:
         raise ProfileError(f"{src}: [route] belongs in a scanner profile only")
 
+    if "list" in raw and kind != "lcr-meter":
+        raise ProfileError(f"{src}: [list] belongs in an lcr-meter profile only")
+    if kind == "lcr-meter" and "list" in raw:
+        _list(raw, src, commands, options)
+    setup, shutdown = _sequence(raw, src)
+    capabilities = _capabilities(raw, src, kind, settings, commands)
     return Profile(name=name, kind=kind, description=description, source=src,
                    read_termination=terms["read_termination"],
                    write_termination=terms["write_termination"], timeout_s=timeout_s,
                    serial=serial, common=common, settings=settings, commands=commands,
-                   options=options)
+                   options=options, setup=setup, shutdown=shutdown,
+                   capabilities=capabilities, reply=options.get("reply"))
+
+
+def _sequence(raw: dict, src: str) -> tuple[tuple[CommandTemplate, ...], ...]:
+    """[sequence] setup/shutdown: lists of plain commands sent after opening / before closing."""
+    t = _table(raw, "sequence", src, _SEQUENCE_KEYS, False)
+    out = []
+    for key in ("setup", "shutdown"):
+        items = t.get(key, [])
+        if not isinstance(items, list):
+            raise ProfileError(f"{src}: [sequence] {key} must be a list of commands")
+        cmds = []
+        for i, text in enumerate(items):
+            cmd = CommandTemplate(text, (), f"{src}: [sequence] {key}[{i}]")
+            if cmd.is_query:
+                raise ProfileError(f"{src}: [sequence] {key}[{i}] {text!r} is a query; "
+                                   "setup and shutdown hold commands only")
+            cmds.append(cmd)
+        out.append(tuple(cmds))
+    return out[0], out[1]
+
+
+def _capabilities(raw: dict, src: str, kind: str, settings: dict,
+                  commands: dict) -> dict[str, bool]:
+    """Which optional capabilities are spelled, and which the engine may use ([capabilities])."""
+    known = CAPABILITIES.get(kind, {})
+    present = {}
+    for cap, (how, names) in known.items():
+        if how == "setting":
+            have = [n for n in names if n in settings]
+            if have and len(have) != len(names):
+                miss = sorted(set(names) - set(have))
+                raise ProfileError(f"{src}: capability {cap} needs [setting.{miss[0]}] too "
+                                   f"({', '.join(names)} together)")
+            if have:
+                present[cap] = True
+        elif "list_trigger" in commands:
+            present[cap] = True
+    t = raw.get("capabilities", {})
+    if not isinstance(t, dict):
+        raise ProfileError(f"{src}: [capabilities] must be a table")
+    unknown = sorted(set(t) - {"engine_may_use"})
+    if unknown:
+        raise ProfileError(f"{src}: [capabilities] unknown key(s) {', '.join(unknown)}; "
+                           "allowed: engine_may_use")
+    use = t.get("engine_may_use", sorted(present))
+    if not isinstance(use, list) or not all(isinstance(u, str) for u in use):
+        raise ProfileError(f"{src}: [capabilities] engine_may_use must be a list of names")
+    for u in use:
+        if u not in known:
+            raise ProfileError(f"{src}: [capabilities] unknown capability {u!r}; a {kind} "
+                               f"knows {', '.join(known) or 'none'}")
+        if u not in present:
+            raise ProfileError(f"{src}: [capabilities] engine_may_use names {u!r}, but the "
+                               "profile does not spell it (see PROFILES.md, Capabilities)")
+    return {cap: cap in use for cap in present}
+
+
+def _list(raw: dict, src: str, commands: dict, options: dict) -> None:
+    """[list]: a list sweep over frequency and/or bias, one trigger, one fetch of all points."""
+    t = _table(raw, "list", src, _LIST_KEYS, True)
+    where = f"{src}: [list]"
+    axes = []
+    for axis in ("freq", "bias"):
+        if axis in t:
+            cmd = CommandTemplate(_string(t, axis, where), ("values",), f"{where} {axis}")
+            if cmd.is_query or cmd.fields != ("values",):
+                raise ProfileError(f"{where} {axis} must be a command with one {{values}}")
+            commands[f"list_{axis}"] = cmd
+            axes.append(axis)
+    if not axes:
+        raise ProfileError(f"{where} needs 'freq' or 'bias' (or both)")
+    trig = CommandTemplate(_string(t, "trigger", where), (), f"{where} trigger")
+    fetch = CommandTemplate(_string(t, "fetch", where), (), f"{where} fetch")
+    if trig.is_query or not fetch.is_query:
+        raise ProfileError(f"{where} trigger is a command and fetch a query (ending in '?')")
+    commands["list_trigger"], commands["list_fetch"] = trig, fetch
+    n = t.get("max_points", 201)
+    if isinstance(n, bool) or not isinstance(n, int) or n < 2:
+        raise ProfileError(f"{where} max_points must be a whole number >= 2")
+    options["list_axes"] = tuple(axes)
+    options["list_max_points"] = n
 
 
 def _serial(link: dict, src: str) -> dict:
@@ -447,6 +593,47 @@ def _measure(raw: dict, src: str, commands: dict, options: dict) -> None:
     if over <= 0:
         raise ProfileError(f"{where} overload_above must be positive")
     options["overload_above"] = over
+    options["reply"] = _reply(t.get("reply", {}), f"{where}.reply")
+
+
+def _reply(t: Any, where: str) -> ReplyLayout:
+    if not isinstance(t, dict):
+        raise ProfileError(f"{where}: must be a table")
+    unknown = sorted(set(t) - _REPLY_KEYS)
+    if unknown:
+        raise ProfileError(f"{where} unknown key(s) {', '.join(unknown)}; "
+                           f"allowed: {', '.join(sorted(_REPLY_KEYS))}")
+    fields = t.get("fields", ["primary", "secondary"])
+    if not isinstance(fields, list) or not all(isinstance(f, str) for f in fields):
+        raise ProfileError(f"{where} fields must be a list of {', '.join(REPLY_FIELDS)}")
+    bad = [f for f in fields if f not in REPLY_FIELDS]
+    if bad:
+        raise ProfileError(f"{where} fields: {bad[0]!r} unknown; each is one of "
+                           f"{', '.join(REPLY_FIELDS)}")
+    for f in ("primary", "secondary"):
+        if fields.count(f) != 1:
+            raise ProfileError(f"{where} fields must hold 'primary' and 'secondary' once each")
+    if fields.count("status") > 1:
+        raise ProfileError(f"{where} fields may hold 'status' once")
+    sep = t.get("separator", ",")
+    if sep not in REPLY_SEPARATORS:
+        raise ProfileError(f"{where} separator must be one of \",\" \";\" \" \" \"\\t\"")
+    toks = {}
+    for key in ("status_ok", "status_overload"):
+        v = t.get(key, [])
+        if not isinstance(v, list):
+            raise ProfileError(f"{where} {key} must be a list of status tokens")
+        toks[key] = tuple(_token(x, f"{where} {key}") for x in v)
+    if "status" in fields and not toks["status_ok"]:
+        raise ProfileError(f"{where} a 'status' field needs status_ok (the token(s) of a good "
+                           "reading, e.g. [\"0\"])")
+    if "status" not in fields and (toks["status_ok"] or toks["status_overload"]):
+        raise ProfileError(f"{where} status_ok/status_overload need a 'status' field")
+    units = t.get("units", "none")
+    if units not in UNIT_MODES:
+        raise ProfileError(f"{where} units must be one of {', '.join(UNIT_MODES)}")
+    return ReplyLayout(fields=tuple(fields), separator=sep, status_ok=toks["status_ok"],
+                       status_overload=toks["status_overload"], units=units)
 
 
 def _route(raw: dict, src: str, commands: dict, options: dict) -> None:

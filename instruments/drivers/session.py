@@ -40,6 +40,20 @@ _STOP_BITS = {1: constants.StopBits.one, 1.5: constants.StopBits.one_and_a_half,
               2: constants.StopBits.two}
 
 
+DEFAULT_VISA_LIBRARY = "@py"   # pyvisa-py: pure Python, no vendor VISA needed
+
+
+def resource_manager(visa_library: str = DEFAULT_VISA_LIBRARY) -> Any:
+    """The ResourceManager of a VISA library; a session never closes it.
+
+    `visa_library` is what pyvisa.ResourceManager takes: '@py' (pyvisa-py), '@ivi' (the
+    vendor VISA installed on the machine, e.g. for GPIB and USB adapters), a path to a VISA
+    shared library, or 'file.yaml@sim' (pyvisa-sim). pyvisa hands every caller of one
+    library the same process-wide manager.
+    """
+    return pyvisa.ResourceManager(visa_library)
+
+
 class _Timeout(Exception):
     """Internal: no complete reply in time."""
 
@@ -82,7 +96,8 @@ class Session:
                  max_stale_lines: int = 50, serial: dict | None = None,
                  common: dict[str, str] | None = None,
                  on_reconnect: Callable[[], None] | None = None,
-                 sleep: Callable[[float], None] = time.sleep):
+                 sleep: Callable[[float], None] = time.sleep,
+                 visa_library: str | None = None):
         self.role = role
         if not isinstance(resource, str) or not resource.strip():
             raise InstrumentLinkError(
@@ -120,6 +135,7 @@ class Session:
         self.serial = dict(serial or {})
         self.common = {**COMMON_DEFAULTS, **(common or {})}
         self.on_reconnect = on_reconnect
+        self.visa_library = visa_library or DEFAULT_VISA_LIBRARY
         self._sleep = sleep
         self._rm = rm
         self._res: Any = None
@@ -161,11 +177,14 @@ class Session:
 
     def _open_link(self) -> None:
         try:
-            rm = self._rm if self._rm is not None else pyvisa.ResourceManager("@py")
+            rm = self._rm if self._rm is not None else resource_manager(self.visa_library)
         except Exception as exc:
+            reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
             raise InstrumentLinkError(
-                f"{self.role}: cannot open '{self.resource}': no VISA library ({exc}); check "
-                "that pyvisa-py is installed", role=self.role, resource=self.resource) from None
+                f"{self.role}: cannot open '{self.resource}': VISA library "
+                f"{self.visa_library!r} did not load ({reason}); check visa_library in the "
+                "bench file ('@py' is pyvisa-py) and that this library is installed",
+                role=self.role, resource=self.resource) from None
         try:
             res = rm.open_resource(self.resource, open_timeout=int(self.open_timeout_s * 1000))
         except Exception as exc:

@@ -91,7 +91,7 @@ class Setting:
     """
 
     def __init__(self, doc: str, *, type: str, unit: str = "", read_only: bool = False,
-                 values: tuple[str, ...] = ()):
+                 values: tuple[str, ...] = (), optional: str = ""):
         if type not in ("float", "enum", "bool"):
             raise ValueError(f"Setting type must be float, enum or bool, not {type!r}")
         if type == "float" and unit not in UNITS:
@@ -104,6 +104,7 @@ class Setting:
         self.type = type
         self.unit = unit
         self.read_only = read_only
+        self.optional = optional   # the capability this setting belongs to; "" = required
         self.name = ""
         self.__doc__ = doc
 
@@ -148,7 +149,7 @@ class Setting:
             text = spec.tokens[value]
         else:
             text = spec.true_token if value else spec.false_token
-        return spec.set.format(value=text)
+        return spec.set.fill(value=text)
 
     def parse(self, spec: "SettingSpec", reply: str) -> Any:
         """Reply -> value; ValueError for a reply that cannot be read (treated as garbled)."""

@@ -8,6 +8,7 @@ the part's settled capacitance) and inject faults at a chosen command.
 from __future__ import annotations
 
 import json
+from pathlib import Path
 from typing import Iterable, Mapping, Sequence
 
 import numpy as np
@@ -25,6 +26,17 @@ from instruments.sim.thermometer import ThermometerSim
 
 ROLE_ORDER = ALL_ROLES
 PROFILES = DEFAULT_PROFILES
+# The meter's dialects (COMMANDS.md): "generic" speaks the generic profiles, "alt" spells
+# everything otherwise, answers a status field, has level control and an internal bias.
+DIALECTS = ("generic", "alt")
+ALT_METER_PROFILE = Path(__file__).resolve().parent / "profiles" / "sim-alt-lcr.toml"
+
+
+def _meter_class(dialect: str):
+    if dialect == "alt":
+        from instruments.sim.lcr_meter_alt import LCRMeterAltSim
+        return LCRMeterAltSim
+    return LCRMeterSim
 
 
 class SimBenchError(ValueError):
@@ -56,7 +68,8 @@ class SimBench:
 
     def __init__(self, parts: Mapping[str, object], fixture: Sequence[object], clock=None,
                  host: str = "127.0.0.1", base_port: int = 0, faults: Iterable[Fault] = (),
-                 seed: int = 0, temp_C: float = 25.0, wiring: Wiring = Wiring()):
+                 seed: int = 0, temp_C: float = 25.0, wiring: Wiring = Wiring(),
+                 dialect: str = "generic"):
         from instruments.sim.physics import SimulatedPart  # physics imports scipy: load late
 
         self.clock = clock if clock is not None else RealClock()
@@ -91,7 +104,11 @@ class SimBench:
         except FixtureError as exc:
             raise SimBenchError(f"fixture: {exc}") from None
         tag = f"{seed % 10000:04d}"
-        self.meter = LCRMeterSim(f"SM{tag}-01", self.fixture)
+        if dialect not in DIALECTS:
+            raise SimBenchError(f"meter dialect {dialect!r} unknown; one of "
+                                f"{', '.join(DIALECTS)}")
+        self.dialect = dialect
+        self.meter = _meter_class(dialect)(f"SM{tag}-01", self.fixture)
         self.supply = DCSupplySim(f"SM{tag}-02", self.fixture)
         self.scanner = ScannerSim(f"SM{tag}-03", self.fixture)
         self.thermometer = ThermometerSim(f"SM{tag}-04", self.fixture,
@@ -180,8 +197,14 @@ class SimBench:
         lines = ["# Bench file of a simulated bench (benchkit sim). Roles, resources, profiles,",
                  "# and which sample sits on which scanner channel.", ""]
         for role, resource in self.resources.items():
+            profile = PROFILES[role]
+            if self.dialect == "alt" and role == "supply":
+                lines += ["# no [instrument.supply]: the meter's internal bias biases the part", ""]
+                continue
+            if self.dialect == "alt" and role == "meter":
+                profile = str(ALT_METER_PROFILE)
             lines += [f"[instrument.{role}]", f"resource = {_toml_str(resource)}",
-                      f"profile = {_toml_str(PROFILES[role])}", ""]
+                      f"profile = {_toml_str(profile)}", ""]
         for entry in self.channels:
             lines += ["[[channel]]", f"channel = {entry['channel']}",
                       f"sample_id = {_toml_str(entry['sample_id'])}",

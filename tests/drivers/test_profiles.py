@@ -135,8 +135,12 @@ def test_profile_conventions(name):
             assert spec.values and set(spec.values) <= set(s.values)
         if spec.type == "bool":
             assert spec.true_token.upper() != spec.false_token.upper()
-    # a declared setting missing from the profile would have failed check_profile_matches
-    assert set(declared) == set(p.settings)
+    # a declared setting missing from the profile would have failed check_profile_matches,
+    # unless it belongs to an optional capability
+    required = {n for n, s in declared.items() if not s.optional}
+    assert required <= set(p.settings) <= set(declared)
+    for n in set(declared) - set(p.settings):
+        assert not p.has(declared[n].optional)
 
 
 @pytest.mark.parametrize("name", shipped_profiles())

@@ -11,6 +11,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "sweep"))
 
+from sweep_helpers import flags_besides_level  # noqa: E402,F401  (re-exported for the fault tests)
 from sweep_helpers import plan_text as sweep_plan_text  # noqa: E402  (one plan writer for both)
 
 from benchkit.sweep.plan import build_sweeps, load_plan

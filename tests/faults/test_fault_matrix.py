@@ -34,8 +34,8 @@ import pytest
 from benchkit.cli import main
 from instruments.sim.faults import DEFAULT_ROLE, KINDS
 
-from fault_kit import (flags_of, keep_benches, planned_keys, read_meta, read_rows, row_keys,
-                       write_plan)
+from fault_kit import (PARTS, flags_besides_level, flags_of, keep_benches, planned_keys,
+                       read_meta, read_rows, row_keys, write_plan)
 
 IO_TIMEOUT_S = "0.3"  # real seconds a swallowed reply costs; the late reply comes after 0.6 s
 OPTIONS = {"late": ":delay=0.6", "temp-drift": ":rate=30"}  # 30 degC/min: beyond 2 degC in a sample
@@ -82,7 +82,8 @@ def clean_run(tmp_path_factory):
     bench = made[0]
     counts = {role: bench.faults.count(role) for role in ("meter", "supply", "scanner", "thermometer")}
     rows = read_rows(tmp / "run")
-    assert row_keys(rows) == planned_keys(plan) and all(r["flags"] == "" for r in rows)
+    assert row_keys(rows) == planned_keys(plan)
+    assert all(flags_besides_level(r, PARTS[r["part_id"]].nominal_C_F) == "" for r in rows)
     return plan, counts
 
 

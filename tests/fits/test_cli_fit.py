@@ -43,8 +43,10 @@ def test_one_sample_writes_rising_primary_and_falling_beside(make_run, tmp_path,
     assert rising.source["points_sha256"] == sha
     assert rising.source["run_id"] == "RUN-TEST-1"
     assert rising.sample_id == "FX-01" and rising.part_id == "BD-1001"
-    assert rising.conditions == {"freq_Hz": 1000.0, "ac_level_Vrms": 1.0, "temp_C": 25.0,
-                                 "function": "CPD"}
+    # the level the part saw (the points' ac_level_dut_Vrms), not the 1 Vrms set at the meter
+    assert rising.conditions == {"freq_Hz": 1000.0, "ac_level_Vrms": 0.157, "temp_C": 25.0,
+                                 "function": "CPD",
+                                 "ac_level_source": "level across the part (median of the points)"}
     assert rising.valid_range_V == (0.0, 6.0)
     assert (tmp_path / "fit.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert "FX-01 rising: tanh" in stdout

@@ -237,9 +237,13 @@ def test_fit_conditions_from_the_points_else_run_json(tmp_path):
         p["temp_C"] = 25.0 + 0.1 * i
     s = rundir.read_run_dir(write_run(tmp_path / "a", pts)).samples["FX-01"]
     c = rundir.fit_conditions({"conditions": {}}, s.rows)
-    # median of the points' frequency and set level, mean of their temperatures (numpy)
-    assert c == {"freq_Hz": 1000.0, "ac_level_Vrms": 1.0,
+    # median of the points' frequency and of the level across the part (what the part saw, not
+    # the set level), mean of their temperatures (numpy)
+    dut = float(np.median([float(r["ac_level_dut_Vrms"]) for r in s.rows]))
+    assert c == {"freq_Hz": 1000.0, "ac_level_Vrms": dut,
+                 "ac_level_source": "level across the part (median of the points)",
                  "temp_C": pytest.approx(float(np.mean([p["temp_C"] for p in pts]))), "function": "CPD"}
+    # (a run without a level monitor falls back to the set level: test_meter_profiles.py)
     no_freq = [dict(p, freq_Hz="") for p in make_points(both=False)]
     run = write_run(tmp_path / "b", no_freq, conditions={"function": "CPD", "freq_Hz": 120.0,
                                                          "ac_level_Vrms": 0.5})

@@ -14,7 +14,7 @@ from instruments.clock import VirtualClock
 from instruments.sim import Fault, SimBench
 from benchkit.catalogue.codes import tolerance_limits_F
 
-from sweep_helpers import CtrlCAfter, read_meta, read_rows, write_plan
+from sweep_helpers import CtrlCAfter, flags_besides_level, read_meta, read_rows, write_plan
 from benchkit.commands.sim import demo_bench
 
 PARTS = load_catalogue()
@@ -58,7 +58,7 @@ def test_units_and_readbacks(swept):
         assert int(r["n_readings"]) == 2 and float(r["C_std_F"]) >= 0
         assert float(r["dwell_s"]) == 1.0 and float(r["settle_s"]) == 1.0
         assert 20.0 < float(r["temp_C"]) < 30.0  # degC at the fixture, chamber at 25
-        assert r["flags"] == ""
+        assert flags_besides_level(r, part.nominal_C_F) == ""
         datetime.fromisoformat(r["utc"].replace("Z", "+00:00"))
         if float(r["bias_set_V"]) == 0.0 and r["branch"] == "rising":
             # at 0 V a part reads within its tolerance letter [standard: IEC 60062]: C_F is in farads
@@ -193,7 +193,9 @@ def test_sigint_mid_sample_then_resume_approaches_from_above(tmp_path):
     assert res2.status == "complete"
     assert [(r["branch"], float(r["bias_set_V"])) for r in rows] == [
         ("rising", 0.0), ("rising", 2.0), ("rising", 4.0), ("falling", 2.0), ("falling", 0.0)]
-    assert rows[3]["flags"] == "resumed" and all(r["flags"] == "" for r in rows[4:])
+    nominal = PARTS[rows[3]["part_id"]].nominal_C_F
+    assert flags_besides_level(rows[3], nominal) == "resumed"
+    assert all(flags_besides_level(r, nominal) == "" for r in rows[4:])
     events = [e for e in read_meta(tmp_path / "run")["events"] if e["event"] == "resume_approach"]
     assert events and events[0]["via_V"] == 4.0  # the falling point is reached from the peak
 
