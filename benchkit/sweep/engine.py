@@ -124,10 +124,11 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries):
             row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
         with self.guard.transaction():  # a row is written whole or not at all
             self.log.append_point(row)
-        if sw.adaptive is not None:  # its planner needs the rows; other samples' stay on disk
-            self._measured.setdefault(p.sample_id, []).append(row)
-        self.done += 1
-        self.n_new += 1
+            # counted inside: a stop deferred to the end of the write must find it counted
+            if sw.adaptive is not None:  # its planner needs the rows; other samples' stay on disk
+                self._measured.setdefault(p.sample_id, []).append(row)
+            self.done += 1
+            self.n_new += 1
         if self.progress is not None:
             c = row["C_F"]
             ctext = "overload" if c is None else f"C = {c:.5g} F"
