@@ -37,6 +37,12 @@ def _overhead(out_dir, quick, parts, log):
     return overhead.run(out_dir, quick=quick, log=log)
 
 
+def _floor(out_dir, quick, parts, log):
+    from benchkit.benchmarks import floor
+
+    return floor.run(out_dir, quick=quick, log=log)
+
+
 def _fits(out_dir, quick, parts, log):
     from benchkit.benchmarks import fit_speed
 
@@ -83,6 +89,7 @@ def _soak(out_dir, quick, parts, log):
 BENCHMARKS: dict[str, Callable] = {
     "bench_time": _bench_time,
     "overhead": _overhead,
+    "floor": _floor,
     "fits": _fits,
     "strd": _strd,
     "independent_truths": _truths,

@@ -65,6 +65,17 @@ def format_table(results: dict) -> str:
             else:
                 lines.append(f"  PyMeasure: skipped ({ov.get('pymeasure_skipped')})")
         lines.append("")
+    fl = b.get("floor")
+    if fl is not None:
+        lines.append("Uniform sweep on a real clock against its physics floor")
+        if "error" in fl:
+            lines.append(f"  FAILED: {fl['error']}")
+        else:
+            lines.append(f"  {fl['part']}, {fl['points']} points, dwell {fl['dwell_s']:g} s: "
+                         f"{fl['wall_s']:.3f} s wall against {fl['physics_floor_s']:.3f} s of "
+                         f"dwell, ramp and measurement time: {fl['over_floor_pct']:+.2f} % "
+                         f"(target <= {fl['target_pct']:g} %)")
+        lines.append("")
     fs = b.get("fits")
     if fs is not None:
         lines.append("Fits per second, 41-point sweep: fits.fit_sweep vs bare scipy.optimize.curve_fit")

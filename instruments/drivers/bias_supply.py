@@ -32,7 +32,12 @@ class RampedOutput:
         """Move the programmed voltage to target_V in steps of at most max_step_V.
 
         Before each step the clock sleeps |step| / max_rate_V_per_s, so the rate is never
-        exceeded (also not against a set made just before the ramp). Everything is
+        exceeded (also not against a set made just before the ramp). The time since the last
+        ramp of this driver ended (on the same clock, at the voltage it ended at) counts
+        towards the first pause: the rate bounds the change between consecutive programmed
+        values, and a dwell spent at the last one is such time. The ramp starts from the
+        voltage this driver last programmed and saw accepted; only when it does not know
+        one (a fresh link, a refused or lost set) does it ask the source. Everything is
         validated before the first command. Returns the (clock time, voltage) steps, the
         starting point first; kept in .last_ramp.
         """
@@ -45,18 +50,25 @@ class RampedOutput:
         if not (callable(getattr(clock, "sleep", None)) and callable(getattr(clock, "now", None))):
             raise InvalidValueError(f"{what}: ramp_to needs a clock with now() and sleep()")
         self._exit_clock, self._exit_rate = clock, rate
-        start = self.voltage_V
+        known = getattr(self, "_known", {}).get("voltage_V")
+        start = known if known is not None else self.voltage_V
         log = [(clock.now(), start)]
         self.last_ramp = log
+        last, self._last_step = getattr(self, "_last_step", None), None
+        credit = 0.0
+        if last is not None and last[0] is clock and last[2] == start:
+            credit = max(0.0, clock.now() - last[1])
         delta = target - start
         n = math.ceil(abs(delta) / step - 1e-9) if delta else 0
         prev = start
         for k in range(1, n + 1):
             v = target if k == n else start + delta * k / n
-            clock.sleep(abs(v - prev) / rate * _RATE_MARGIN)
+            pause = abs(v - prev) / rate * _RATE_MARGIN
+            clock.sleep(pause - credit if k == 1 else pause)
             self.voltage_V = v
             log.append((clock.now(), v))
             prev = v
+        self._last_step = (clock, clock.now(), float(target))
         return log
 
     # -- shutdown --------------------------------------------------------------------------
@@ -158,6 +170,7 @@ class BiasSupply(RampedOutput, Instrument):
         self._exit_clock: Any = None
         self._exit_rate: float | None = None
         self._atexit_registered = False
+        self._last_step: tuple[Any, float, float] | None = None  # (clock, time, V) of a ramp's end
 
     @property
     def voltage_range_V(self) -> tuple[float, float]:
@@ -192,6 +205,11 @@ class BiasSupply(RampedOutput, Instrument):
         if self.is_open:
             self.safe_off(self._exit_clock, self._exit_rate)
             self.close()
+
+    def _apply(self, setting, value) -> None:
+        if setting.name == "voltage_V":
+            self._last_step = None  # a set outside a ramp's end: no time to count on
+        super()._apply(setting, value)
 
     def _after_reconnect(self) -> None:
         # The current limit first, then the programmed voltage (a set lost with the link

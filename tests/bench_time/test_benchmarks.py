@@ -33,7 +33,8 @@ def test_quick_run_writes_json_and_table(quick):
     assert res["date_utc"].endswith("Z")
     table = (out / "bench.txt").read_text()
     assert table.strip() in proc.stdout  # the same table on stdout
-    for title in ("Bench time", "Software overhead", "Fits per second", "Library query"):
+    for title in ("Bench time", "Software overhead", "physics floor", "Fits per second",
+                  "Library query"):
         assert title in table
 
 
@@ -64,6 +65,11 @@ def test_overhead_fits_and_library_keys(quick):
             ov["engine_point_wall_s"] / ov["pymeasure_point_wall_s"])
     else:
         assert "PyMeasure" in ov["pymeasure_skipped"]
+    fl = b["floor"]
+    assert fl["over_floor_pct"] == pytest.approx(
+        100.0 * (fl["wall_s"] / fl["physics_floor_s"] - 1.0))
+    # the floor is at least the dwells of the points between the first and the last
+    assert fl["physics_floor_s"] >= (fl["points"] - 1) * fl["dwell_s"]
     for name in ("tanh", "poly", "landau"):
         f = b["fits"]["models"][name]
         assert f["curve_fit_over_fit_sweep"] == pytest.approx(f["curve_fit_per_s"] / f["fit_sweep_per_s"])

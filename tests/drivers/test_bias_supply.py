@@ -235,7 +235,8 @@ def test_leaving_with_block_calls_safe_off_even_after_an_exception():
 
 def test_leaving_after_a_ramp_ramps_down_at_the_same_rate():
     clock = VirtualClock()
-    s, rm = supply(_ramp_protocol(0.0, [0.5, 1.0]) + _ramp_protocol(1.0, [0.5, 0.0])
+    # the ramp down starts from the 1 V this driver programmed and saw accepted: no VOLTage?
+    s, rm = supply(_ramp_protocol(0.0, [0.5, 1.0]) + _ramp_protocol(1.0, [0.5, 0.0])[1:]
                    + SAFE_OFF_TAIL[2:], clock=clock)
     with s:
         s.ramp_to(1.0, 0.5, clock)
@@ -304,5 +305,38 @@ def test_a_ramp_step_lost_with_the_link_is_reapplied_so_no_step_doubles():
     s.open()
     s.ramp_to(1.5, 1.0, clock)
     assert s.session.counters["reconnects"] == 1
+    s.close()
+    rm.assert_done()
+
+
+def test_time_spent_at_the_end_of_a_ramp_counts_towards_the_next_ramps_first_pause():
+    # common practice: the rate bounds |dV|/dt between consecutive programmed values; a
+    # dwell at the last value is such time, so after 3 s at 1 V a 0.5 V step at 1 V/s may
+    # come at once, and the step after it still waits its 0.5 s
+    clock = VirtualClock()
+    s, rm = supply(_ramp_protocol(0.0, [0.5, 1.0]) + _ramp_protocol(1.0, [1.5, 2.0])[1:],
+                   clock=clock)
+    s.open()
+    s.ramp_to(1.0, 1.0, clock)
+    clock.sleep(3.0)
+    s.ramp_to(2.0, 1.0, clock)
+    steps = [(0.0, 0.0)] + _sent_steps(rm)
+    assert [t for t, _ in steps] == pytest.approx([0.0, 0.5, 1.0, 4.0, 4.5])
+    for (t0, v0), (t1, v1) in zip(steps, steps[1:]):
+        assert abs(v1 - v0) <= 1.0 * (t1 - t0) * (1 + 1e-6)
+    s.close()
+    rm.assert_done()
+
+
+def test_a_set_outside_a_ramp_takes_away_the_time_credit():
+    clock = VirtualClock()
+    s, rm = supply(_ramp_protocol(0.0, [0.5]) + [("VOLTage 0.5", None), (ERR, OK)]
+                   + _ramp_protocol(0.5, [1.0])[1:], clock=clock)
+    s.open()
+    s.ramp_to(0.5, 1.0, clock)
+    clock.sleep(3.0)
+    s.voltage_V = 0.5  # a set just now: the next step waits its whole pause
+    s.ramp_to(1.0, 1.0, clock)
+    assert _sent_steps(rm)[-1][0] == pytest.approx(4.0)
     s.close()
     rm.assert_done()
