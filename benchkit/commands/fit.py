@@ -18,8 +18,10 @@ Everything is fitted and rendered in memory first; nothing is written if any sam
 
 from __future__ import annotations
 
+import json
 import math
 import re
+import sys
 from pathlib import Path
 
 from benchkit.sweep import runlog
@@ -55,6 +57,7 @@ def register(subparsers) -> None:
                    help="fit the tanh model to each branch on its own instead of sharing its "
                         "shape between rising and falling")
     p.add_argument("--report", action="store_true", help="print the full fit report")
+    p.add_argument("--json", action="store_true", help="print the fitted curves' summary as JSON")
     p.set_defaults(func=run)
 
 
@@ -135,18 +138,27 @@ def run(args) -> int:
 
     status = meta.get("status")
     if status != "complete":
-        print(f"note: run status is {status!r}"
+        print(f"benchkit fit: note: run status is {status!r}"
               + (f" ({meta.get('reason')})" if meta.get("reason") else "")
-              + "; fitted the points it holds")
+              + "; fitted the points it holds", file=sys.stderr)
     if run_data.left_out:
-        print(f"note: {run_data.left_out} point(s) left out for flags "
-              f"{', '.join(sorted(run_data.left_out_flags))}")
+        print(f"benchkit fit: note: {run_data.left_out} point(s) left out for flags "
+              f"{', '.join(sorted(run_data.left_out_flags))}", file=sys.stderr)
+    if args.json:
+        print(json.dumps({"run_id": meta.get("run_id"), "points_sha256": sha, "curves": [
+            {"sample_id": sid, "branch": b, "path": str(path),
+             "model": outcomes[sid].outcomes[b].curve.model,
+             "valid_range_V": list(outcomes[sid].outcomes[b].curve.valid_range_V),
+             "stats": outcomes[sid].outcomes[b].curve.stats}
+            for (sid, b), path in paths.items()], "plots": [str(p) for p in figures]},
+            indent=2, default=str))
+        return 0
     for (sid, b), path in paths.items():
         o = outcomes[sid].outcomes[b]
         c, st = o.curve, o.curve.stats
         lo, hi = c.valid_range_V
         ranking = ", ".join(f"{n} {bic:.1f}" for n, _, bic in o.ranking if math.isfinite(bic))
-        print(f"{sid} {b}: {c.model} ({st['variant']}), R^2 {st['r2']:.6f}, RMS "
+        print(f"{sid} {b}: {_model_text(c.model, st.get('variant'))}, R^2 {st['r2']:.6f}, RMS "
               f"{st['rms_pct_C0']:.3g} % of C0, {lo:g} V to {hi:g} V"
               + (f"; BIC {ranking}" if len(o.ranking) > 1 else "") + f" -> {path}")
         if args.report:
@@ -154,3 +166,11 @@ def run(args) -> int:
     for path in figures:
         print(f"plot -> {path}")
     return 0
+
+
+def _model_text(model: str, variant) -> str:
+    """'poly (degree 8)', not 'poly (poly degree 8)': the variant without the model's name again."""
+    v = str(variant or "").strip()
+    if v.startswith(model):
+        v = v[len(model):].strip(" ,:")
+    return f"{model} ({v})" if v and v != model else model

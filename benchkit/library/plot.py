@@ -1,4 +1,4 @@
-"""A PNG of every curve of one part: C against bias over each curve's valid range (matplotlib Agg)."""
+"""A PNG of every curve of one part: C against bias over each curve's valid range (a bare Figure on an Agg canvas)."""
 
 from __future__ import annotations
 
@@ -13,12 +13,11 @@ from benchkit.library.records import CurveRecord, PartRecord
 
 def plot_part(part: PartRecord, records: list[CurveRecord], path: str | Path) -> Path:
     """Draw the curves (solid, with a +-2u band where the covariance gives one) and save atomically."""
-    import matplotlib
-
-    matplotlib.use("Agg")
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
     fig = Figure(figsize=(7.5, 4.8), dpi=110)
+    FigureCanvasAgg(fig)  # draws to memory; no backend is chosen or switched here
     ax = fig.add_subplot(1, 1, 1)
     for rec in records:
         curve = rec.curve

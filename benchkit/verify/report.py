@@ -21,26 +21,31 @@ CAUTION = ("This report judges the samples measured against the claim under the 
            "review by a qualified person. Check the conditions flagged before acting on it.")
 
 
-def _mpl():
+def _figure(figsize):
+    """A bare Figure on an Agg canvas: no pyplot, so the caller's backend is left alone."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=figsize)
+    FigureCanvasAgg(fig)
+    return fig, fig.add_subplot(1, 1, 1)
+
+
+def _colours() -> list[str]:
     import matplotlib
 
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
-
-    return plt
+    return matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
 
 
 def _png(fig) -> str:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
-    _mpl().close(fig)
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
 def plot_curves(v) -> str:
     """The claim with its band, every measured curve, the decided points with their U."""
-    plt = _mpl()
-    fig, ax = plt.subplots(figsize=(7.5, 4.6))
+    fig, ax = _figure((7.5, 4.6))
     claim = v.claim
     lo_V, hi_V = claim.valid_range_V
     grid = np.linspace(lo_V, hi_V, 300)
@@ -49,7 +54,7 @@ def plot_curves(v) -> str:
     ax.fill_between(grid, lo * 1e6, hi * 1e6, color="0.85", label=f"claim band ({v.tolerance.text()})")
     ax.plot(grid, c * 1e6, "k-", lw=1.8, label="claim (PCHIP)")
     ax.plot(claim.bias_V, claim.C_F * 1e6, "ks", ms=4)
-    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    colours = _colours()
     for i, s in enumerate(v.samples):
         col = colours[i % len(colours)]
         a, b = s.sample.curve.valid_range_V
@@ -70,8 +75,7 @@ def plot_curves(v) -> str:
 
 def plot_deviations(v) -> str:
     """Deviation from the claim per claimed bias, with U, the tolerance and acceptance limits."""
-    plt = _mpl()
-    fig, ax = plt.subplots(figsize=(7.5, 4.0))
+    fig, ax = _figure((7.5, 4.0))
     claim = v.claim
     bias = claim.bias_V
     c = np.atleast_1d(claim.C(bias))
@@ -80,7 +84,7 @@ def plot_deviations(v) -> str:
     ax.plot(bias, (lo / c - 1) * 100, "k-", lw=1)
     width = 0.6 * (np.min(np.diff(bias)) if bias.size > 1 else 1.0)
     n = max(len(v.samples), 1)
-    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    colours = _colours()
     for i, s in enumerate(v.samples):
         col = colours[i % len(colours)]
         off = (i - (n - 1) / 2) * width / n
