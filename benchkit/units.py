@@ -180,10 +180,10 @@ def parse_count(text: str | int, field: str = "value") -> int:
 def check_ceramic_capacitance(value_F: float, field: str) -> float:
     """Refuse a capacitance no ceramic capacitor has: most often a forgotten prefix (--min 4.7)."""
     if value_F > CERAMIC_MAX_F:
-        guess = format_value(value_F * 1e-6, "F", micro="u").replace(" ", "")
+        guess = format_value(value_F * 1e-6, "", micro="u").replace(" ", "")
         raise UserError(f"{field} {format_value(value_F, 'F')}: far more than any ceramic capacitor "
-                        f"holds (about 1 mF at most); a prefix is missing? write e.g. {guess} "
-                        f"for microfarads")
+                        f"holds (about 1 mF at most); is a prefix missing? write {guess} for "
+                        f"{format_value(value_F * 1e-6, 'F')}")
     return value_F
 
 
