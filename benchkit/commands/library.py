@@ -266,7 +266,7 @@ def _show(args) -> int:
             stats = getattr(c, "stats", None) or {}
             r2 = stats.get("r2")
             print(f"  curve {rec.curve_id}: {rec.origin}, sample {rec.sample_id or '-'}, {rec.branch or '-'}, "
-                  f"{rec.temp_C:g} degC, model {rec.model}, {lo:g}..{hi:g} V, "
+                  f"{rec.temp_C:.1f} degC, model {rec.model}, {lo:g}..{hi:g} V, "
                   f"C({lo:g} V) = {format_value(float(c.C(lo)), 'F')}, C({hi:g} V) = "
                   f"{format_value(float(c.C(hi)), 'F')}" + (f", r2 {r2:.5f}" if isinstance(r2, float) else ""))
         if target is not None:
