@@ -128,7 +128,9 @@ def run(args) -> int:
         for sid in sample_ids:
             target = plot if len(sample_ids) == 1 else plot.with_name(
                 f"{plot.stem}-{_SAFE.sub('_', sid)}{plot.suffix}")
-            fig = outcomes[sid].plot()
+            part = _part_of(meta, sid)
+            fig = plots.plot_fits(list(outcomes[sid].outcomes.values()),
+                                  nominal_C_F=part.get("nominal_C_F"), rated_V=part.get("rated_V"))
             figures[target] = plots.figure_bytes(fig, plot.suffix)
 
     for key, path in paths.items():
@@ -174,3 +176,11 @@ def _model_text(model: str, variant) -> str:
     if v.startswith(model):
         v = v[len(model):].strip(" ,:")
     return f"{model} ({v})" if v and v != model else model
+
+
+def _part_of(meta: dict, sample_id: str) -> dict:
+    """The catalogue fields run.json recorded for a sample's part (nominal, rated voltage), or {}."""
+    for s in meta.get("samples") or []:
+        if isinstance(s, dict) and s.get("sample_id") == sample_id and isinstance(s.get("part"), dict):
+            return s["part"]
+    return {}

@@ -26,7 +26,7 @@ def _figure(figsize):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=figsize)
+    fig = Figure(figsize=figsize, layout="constrained")  # labels inside the picture
     FigureCanvasAgg(fig)
     return fig, fig.add_subplot(1, 1, 1)
 
@@ -66,10 +66,15 @@ def plot_curves(v) -> str:
         es = [p.budget.U * 1e6 for p in s.points if p.measured_F is not None]
         ax.errorbar(xs, ys, yerr=es, fmt="o", ms=3, color=col, capsize=2)
     ax.set_xlabel("DC bias (V)")
-    ax.set_ylabel("capacitance (uF)")
-    ax.set_title(f"{claim.part_id}: claimed and measured C(V)")
+    ax.set_ylabel("capacitance (\u00b5F)")
+    cond = ", ".join(x for x in (f"{claim.freq_Hz:g} Hz" if claim.freq_Hz else "",
+                                 f"{claim.ac_level_Vrms:g} Vrms" if claim.ac_level_Vrms else "",
+                                 f"{claim.temp_C:g} \u00b0C" if claim.temp_C is not None else "") if x)
+    ax.set_title(f"{claim.part_id}: claimed and measured C(V)" + (f" \u2014 claim at {cond}" if cond else ""),
+                 fontsize=10)
+    ax.ticklabel_format(axis="both", style="plain", useOffset=False)
     ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=7, loc="best")
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))  # beside the data, not on it
     return _png(fig)
 
 
@@ -106,8 +111,9 @@ def plot_deviations(v) -> str:
     if v.rule == "guarded":
         title += "; grey ticks = acceptance limits"
     ax.set_title(title, fontsize=10)
+    ax.ticklabel_format(axis="both", style="plain", useOffset=False)
     ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=7, loc="best", ncol=2)
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return _png(fig)
 
 
