@@ -15,6 +15,7 @@ the chain on purpose.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import hashlib
 import io
@@ -300,7 +301,7 @@ class RunLog:
             chain_fh = open(cpath, "r+b")
         except BaseException:
             fh.close()
-            lock.release()
+            cls._unlock(lock, d)
             raise
         try:
             if path.stat().st_size != end:
@@ -313,7 +314,7 @@ class RunLog:
         except OSError as exc:
             fh.close()
             chain_fh.close()
-            lock.release()
+            cls._unlock(lock, d)
             raise UserError(_write_problem(path, exc)) from None
         chain_fh.seek(0, os.SEEK_END)
         prev = chain_start(str(meta.get("run_id")))
@@ -328,13 +329,25 @@ class RunLog:
         so building the CLI needs no platform module)."""
         from filelock import FileLock, Timeout
 
-        lock = FileLock(str(d / LOCK_FILE), timeout=0)
+        path = d / LOCK_FILE
+        lock = FileLock(str(path), timeout=0)
+        made = not path.exists()
         try:
             lock.acquire()
         except Timeout:
             fh.close()
             raise UserError(f"{d}: another benchkit process is writing this run; wait for it or stop it first") from None
+        lock.benchkit_made = made  # the writer that made the file takes it away again on close
         return lock
+
+    @staticmethod
+    def _unlock(lock, d: Path) -> None:
+        """Release; the writer that made the lock file takes it away, so the folder is left as
+        it was found (a refused resume changes nothing there)."""
+        lock.release()
+        if getattr(lock, "benchkit_made", False):
+            with contextlib.suppress(OSError):
+                (d / LOCK_FILE).unlink()
 
     # -- writing -------------------------------------------------------------
     def append_point(self, row: Mapping[str, Any]) -> None:
@@ -397,7 +410,7 @@ class RunLog:
         if self._fh is not None and not self._fh.closed:
             self._fh.close()
         if self._lock_held is not None:
-            self._lock_held.release()
+            self._unlock(self._lock_held, self.dir)
             self._lock_held = None
 
 
