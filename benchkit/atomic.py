@@ -1,47 +1,27 @@
-"""Writes that cannot be left half done: write a temporary file beside the target, fsync, rename."""
+"""Writes that cannot be left half done: benchkit's face of the one writer in fits._atomic.
+
+The writing itself (temporary file beside the target, fsync, rename, shared file mode) is
+fits._atomic.write_bytes_atomic; here an OSError becomes the operator's one-line UserError.
+"""
 
 from __future__ import annotations
 
 import os
-import tempfile
 from pathlib import Path
 
 from benchkit.errors import UserError
+from fits._atomic import FILE_MODE, write_bytes_atomic as _write_bytes_atomic
 
-
-def _umask_mode() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return 0o666 & ~mask
-
-
-_DEFAULT_MODE = _umask_mode()
+__all__ = ["FILE_MODE", "write_bytes_atomic", "write_text_atomic"]
 
 
 def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     """Replace `path` with `data` in one rename, so a reader sees the old file or the new one."""
     target = Path(path)
     try:
-        target.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    except OSError as exc:
+        return _write_bytes_atomic(target, data)
+    except OSError as exc:  # disk full, read-only, I/O error: one line, old file kept
         raise _cannot_write(target, exc) from None
-    try:
-        os.fchmod(fd, _DEFAULT_MODE)  # mkstemp makes 0600; reports and exports are for sharing
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, target)
-    except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        if isinstance(exc, OSError):  # disk full, read-only, I/O error: one line, old file kept
-            raise _cannot_write(target, exc) from None
-        raise
-    return target
 
 
 def _cannot_write(target: Path, exc: OSError) -> UserError:

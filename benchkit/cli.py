@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
+import re
 import sys
 
 from benchkit import __version__
@@ -23,11 +25,22 @@ SAFETY_NOTE = (
 )
 
 
+# A value that starts with a minus sign and a digit is a value, not an option: "--bias -5V",
+# "--temp -40C" (argparse's own pattern takes only bare numbers such as -5 or -0.5).
+_NEGATIVE_VALUE = re.compile(r"^-\.?\d")
+
+
 class _Parser(argparse.ArgumentParser):
     """argparse that reports usage errors as one line with exit code 2."""
 
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self._negative_number_matcher = _NEGATIVE_VALUE
+
     def error(self, message: str):  # noqa: D401 - argparse hook
-        raise UserError(f"{self.prog}: {message} (see '{self.prog} --help')")
+        # the program's name once, in main's "benchkit: error: " prefix; the (sub)command
+        # is named where the operator can act on it, in the help hint
+        raise UserError(f"{message} (see '{self.prog} --help')")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -44,11 +57,14 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    # The CLI draws files only: Agg, chosen here and nowhere in library code, so a notebook
+    # that imports benchkit keeps its own backend.
+    os.environ["MPLBACKEND"] = "Agg"
     try:
         parser = build_parser()
         args = parser.parse_args(argv)
         if not getattr(args, "func", None):
-            parser.print_help()
+            parser.print_help(sys.stderr)  # no command: usage is a message, not a result
             return 2
         code = args.func(args)
         return int(code or 0)

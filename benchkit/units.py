@@ -4,6 +4,7 @@ Accepted input (one value, optional sign, optional unit symbol at the end):
   plain numbers        2.2e-6, 100, -0.5
   SI prefixes          4.7u, 100n, 10uF, 2.2 kohm, 1.5 MHz   (engineering prefixes a f p n u m k M G T P E;
                        `u`, `µ` (U+00B5) and `μ` (U+03BC) all mean micro; case matters: m milli, M mega)
+  unit symbols         read in the case people type where no prefix looks alike: 12v, 1khz, 4.7uf, 85C (degC)
   IEC 60062 RKM code   4u7 = 4.7u, 2n2, p47, 4F7; for resistance 4R7 = 4.7, R47 = 0.47, 1k5 / 1K5 = 1500, 4M7
                        (the letter stands for the decimal point and carries the multiplier)
 
@@ -69,7 +70,17 @@ UNIT_SYMBOLS: dict[str, tuple[str, ...]] = {
     "Hz": ("Hz",),
     "Vrms": ("Vrms", "V"),
     "s": ("s",),
+    "degC": ("degC", "\u00b0C", "\u2103", "C"),
 }
+
+# Symbols also read in lower or upper case as people type them (12v, 1khz, 0.5vrms): no prefix
+# is spelt like these. "F" is read as "f" only after a prefix (4.7uf), since "10f" is femto.
+_CASE_FREE = {"V": ("V",), "Vrms": ("Vrms", "V"), "Hz": ("Hz",), "degC": ("degC",)}
+
+# Largest capacitance a ceramic capacitor is made with: about a millifarad, the biggest MLCCs
+# being some hundreds of microfarads [common practice, from memory]. Beyond 10 mF a value is
+# far more likely a forgotten prefix (4.7 for 4.7u) than a part.
+CERAMIC_MAX_F = 10e-3
 
 EXAMPLES = "e.g. 4.7u, 4u7, 10uF, 100n, 2.2e-6, 1k5"
 
@@ -78,15 +89,25 @@ _RKM = re.compile(r"([+-]?)(\d*)([pnu\u00b5\u03bcmFRKkMGT])(\d*)")
 
 
 def _strip_unit(text: str, unit: str | None) -> str:
-    """Drop a trailing unit symbol (10uF -> 10u) when it is the expected unit."""
+    """Drop a trailing unit symbol (10uF -> 10u, 12v -> 12, 85C -> 85) when it is the expected unit."""
     if unit is None:
         return text
+    folded = text.lower()
     for symbol in sorted(UNIT_SYMBOLS.get(unit, (unit,)), key=len, reverse=True):
-        if text.endswith(symbol) and len(text) > len(symbol):
+        exact = text.endswith(symbol)
+        loose = symbol in _CASE_FREE.get(unit, ()) and folded.endswith(symbol.lower())
+        if (exact or loose) and len(text) > len(symbol):
             head = text[: -len(symbol)].rstrip()
+            if unit == "degC":  # a temperature takes no prefix: 85C, -40degC, 25.5 °C
+                if head and (head[-1].isdigit() or head[-1] == "."):
+                    return head
+                continue
             # "4F7" is an RKM capacitance, not "4" + F + "7": only strip a final symbol.
             if head and (head[-1].isdigit() or head[-1] in SI_PREFIXES or head[-1] == "."):
                 return head
+    if unit == "F" and text.endswith("f") and len(text) > 2 and text[-2] in SI_PREFIXES \
+            and not text[-2].isdigit():
+        return text[:-1]  # 4.7uf, 100nf: a prefix, then the farad in lower case
     return text
 
 
@@ -142,12 +163,42 @@ def _finite(value: float, raw: str, field: str) -> float:
     return value
 
 
-def arg_type(unit: str | None, field: str = "value"):
-    """An argparse `type=` that reads engineering values and reports errors in one line."""
+def parse_count(text: str | int, field: str = "value") -> int:
+    """A whole number of items, engineering forms allowed: 2000, 10k, 1.5k (lot sizes)."""
+    if isinstance(text, int) and not isinstance(text, bool):
+        value = float(text)
+    else:
+        try:
+            value = parse_value(text, None, field)
+        except UserError:
+            raise UserError(f"{field} {text!r}: not a whole number; write e.g. 2000, 10k, 1.5k") from None
+    if value != math.floor(value) or value < 0:
+        raise UserError(f"{field} {text!r}: must be a whole number >= 0 (e.g. 2000, 10k)")
+    return int(value)
+
+
+def check_ceramic_capacitance(value_F: float, field: str) -> float:
+    """Refuse a capacitance no ceramic capacitor has: most often a forgotten prefix (--min 4.7)."""
+    if value_F > CERAMIC_MAX_F:
+        guess = format_value(value_F * 1e-6, "", micro="u").replace(" ", "")
+        raise UserError(f"{field} {format_value(value_F, 'F')}: far more than any ceramic capacitor "
+                        f"holds (about 1 mF at most); is a prefix missing? write {guess} for "
+                        f"{format_value(value_F * 1e-6, 'F')}")
+    return value_F
+
+
+def arg_type(unit: str | None, field: str = "value", ceramic: bool = False):
+    """An argparse `type=` that reads engineering values and reports errors in one line.
+
+    unit 'count' reads a whole number (10k); `ceramic` refuses capacitances no MLCC has.
+    """
 
     def convert(text: str) -> float:
         try:
-            return parse_value(text, unit, field)
+            if unit == "count":
+                return parse_count(text, field)
+            value = parse_value(text, unit, field)
+            return check_ceramic_capacitance(value, field) if ceramic else value
         except UserError as exc:
             raise argparse.ArgumentTypeError(str(exc)) from None
 

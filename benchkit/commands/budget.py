@@ -8,8 +8,14 @@ from __future__ import annotations
 
 import json
 import math
+import sys
 
 from benchkit.errors import EXIT_OK, UserError
+
+
+# A bank of more parts than this is no longer one design choice but a sign of a wrong value
+# (common practice: boards parallel a handful to a few tens of MLCCs per rail).
+MANY_IN_PARALLEL = 100
 
 
 def register(subparsers) -> None:
@@ -24,12 +30,12 @@ def register(subparsers) -> None:
         epilog=" ".join(CAUTIONS))
     p.add_argument("part", metavar="PART", help="in-house part number in the library")
     p.add_argument("--bias", required=True, type=arg_type("V", "--bias"), help="DC bias, V")
-    p.add_argument("--temp", type=arg_type(None, "--temp"), default=25.0,
-                   help="temperature, degC (default 25)")
+    p.add_argument("--temp", type=arg_type("degC", "--temp"), default=25.0,
+                   help="temperature, degC (default 25; 85 or 85C)")
     p.add_argument("--age-hours", type=arg_type(None, "--age-hours"),
                    help="hours since the last heat at the time of use (default 1000, the "
                         "tolerance's reference age)")
-    p.add_argument("--need", type=arg_type("F", "--need"),
+    p.add_argument("--need", type=arg_type("F", "--need", ceramic=True),
                    help="capacitance needed at the operating point (e.g. 10u): parts in parallel")
     p.add_argument("--resistor", type=arg_type("ohm", "--resistor"),
                    help="series resistor (e.g. 1k5): RC time constant")
@@ -59,6 +65,10 @@ def run(args) -> int:
     with Library(path, create=False, readonly=True) as lib:
         part, b = from_library(lib, args.part, args.bias, args.temp, args.age_hours, args.need,
                                args.resistor, args.aging_k, args.k)
+    if b.need_F is not None and (b.parallel_count or 0) > MANY_IN_PARALLEL:
+        print(f"benchkit budget: note: {b.parallel_count} parts in parallel to reach "
+              f"{format_value(b.need_F, 'F')}: check --need (a prefix missing?) or choose a larger part",
+              file=sys.stderr)
     if args.json:
         doc = b.to_dict()
         doc["part"] = part.as_dict()
@@ -87,7 +97,7 @@ def run(args) -> int:
             print(f"large-signal charge 0 V -> 63.2 % of {b.bias_V:g} V through it: "
                   f"{format_value(b.charge_time_s['typical_to_63pct'], 's')} typical")
     for n in b.notes:
-        print(f"note: {n}")
+        print(f"note: {n}", file=sys.stderr)
     for c in CAUTIONS:
-        print(f"caution: {c}")
+        print(f"caution: {c}", file=sys.stderr)
     return EXIT_OK

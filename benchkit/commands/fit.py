@@ -18,7 +18,9 @@ Everything is fitted and rendered in memory first; nothing is written if any sam
 
 from __future__ import annotations
 
+import json
 import re
+import sys
 from pathlib import Path
 
 from benchkit.sweep import runlog
@@ -58,6 +60,7 @@ def register(subparsers) -> None:
                    help="fit the tanh model to each branch on its own instead of sharing its "
                         "shape between rising and falling")
     p.add_argument("--report", action="store_true", help="print the full fit report")
+    p.add_argument("--json", action="store_true", help="print the fitted curves' summary as JSON")
     p.set_defaults(func=run)
 
 
@@ -138,7 +141,9 @@ def run(args) -> int:
         for sid in sample_ids:
             target = plot if len(sample_ids) == 1 else plot.with_name(
                 f"{plot.stem}-{_SAFE.sub('_', sid)}{plot.suffix}")
-            fig = outcomes[sid].plot()
+            part = _part_of(meta, sid)
+            fig = plots.plot_fits(list(outcomes[sid].outcomes.values()),
+                                  nominal_C_F=part.get("nominal_C_F"), rated_V=part.get("rated_V"))
             figures[target] = plots.figure_bytes(fig, plot.suffix)
 
     for key, path in paths.items():
@@ -148,12 +153,21 @@ def run(args) -> int:
 
     status = meta.get("status")
     if status != "complete":
-        print(f"note: run status is {status!r}"
+        print(f"benchkit fit: note: run status is {status!r}"
               + (f" ({meta.get('reason')})" if meta.get("reason") else "")
-              + "; fitted the points it holds")
+              + "; fitted the points it holds", file=sys.stderr)
     if run_data.left_out:
-        print(f"note: {run_data.left_out} point(s) left out for flags "
-              f"{', '.join(sorted(run_data.left_out_flags))}")
+        print(f"benchkit fit: note: {run_data.left_out} point(s) left out for flags "
+              f"{', '.join(sorted(run_data.left_out_flags))}", file=sys.stderr)
+    if args.json:
+        print(json.dumps({"run_id": meta.get("run_id"), "points_sha256": sha, "curves": [
+            {"sample_id": sid, "branch": b, "path": str(path),
+             "model": outcomes[sid].outcomes[b].curve.model,
+             "valid_range_V": list(outcomes[sid].outcomes[b].curve.valid_range_V),
+             "stats": outcomes[sid].outcomes[b].curve.stats}
+            for (sid, b), path in paths.items()], "plots": [str(p) for p in figures]},
+            indent=2, default=str))
+        return 0
     for (sid, b), path in paths.items():
         o = outcomes[sid].outcomes[b]
         c, st = o.curve, o.curve.stats
@@ -164,7 +178,7 @@ def run(args) -> int:
             quality = f"flat within noise (max |residual| {st['max_resid_pct_C0']:.3g} % of C0)"
         else:
             quality = f"R^2 {st['r2']:.6f}, RMS {st['rms_pct_C0']:.3g} % of C0"
-        print(f"{sid} {b}: {c.model} ({st['variant']}), {quality}, {lo:g} V to {hi:g} V"
+        print(f"{sid} {b}: {_model_text(c.model, st.get('variant'))}, {quality}, {lo:g} V to {hi:g} V"
               + (f"; chosen over {', '.join(n for n, *_ in o.ranking[1:])} by leave-one-out "
                  "prediction" if len(o.ranking) > 1 else "") + f" -> {path}")
         if c.model != "table" and not st.get("describes_data", True):
@@ -174,3 +188,19 @@ def run(args) -> int:
     for path in figures:
         print(f"plot -> {path}")
     return 0
+
+
+def _model_text(model: str, variant) -> str:
+    """'poly (degree 8)', not 'poly (poly degree 8)': the variant without the model's name again."""
+    v = str(variant or "").strip()
+    if v.startswith(model):
+        v = v[len(model):].strip(" ,:")
+    return f"{model} ({v})" if v and v != model else model
+
+
+def _part_of(meta: dict, sample_id: str) -> dict:
+    """The catalogue fields run.json recorded for a sample's part (nominal, rated voltage), or {}."""
+    for s in meta.get("samples") or []:
+        if isinstance(s, dict) and s.get("sample_id") == sample_id and isinstance(s.get("part"), dict):
+            return s["part"]
+    return {}

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 from contextlib import contextmanager
+import sys
 from pathlib import Path
 
 from benchkit.errors import UserError
@@ -26,7 +27,18 @@ Rules of the query:
   several curves (samples, branches) at one temperature: C = mean, u = sqrt(mean(u_i^2) + spread^2);
   origins are not mixed: lot summary first, then measured, then supplier claim;
   ranking: covered parts by C, largest first; then the parts not covered.
-Values take engineering forms: 12, 12V, 4.7u, 4u7, 10uF, 100n."""
+Values take engineering forms: 12, 12V, 12v, 4.7u, 4u7, 10uF, 100n; temperatures 85 or 85C."""
+
+
+def _class_code(text: str) -> str:
+    """--class: any case (x7r), checked against the codes of the trade, so a typo is refused
+    instead of silently matching nothing."""
+    from benchkit.catalogue.codes import parse_class_code
+
+    try:
+        return parse_class_code(text).code
+    except UserError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def register(subparsers) -> None:
@@ -65,26 +77,30 @@ def register(subparsers) -> None:
 
     sp = add("list", "list the parts and how many curves each has")
     sp.add_argument("--case", metavar="CODE", help="only this EIA case code, e.g. 0603")
-    sp.add_argument("--class", dest="class_code", metavar="CODE", help="only this class code, e.g. X7R")
+    sp.add_argument("--class", dest="class_code", metavar="CODE", type=_class_code,
+                    help="only this class code, e.g. X7R (any case)")
+    sp.add_argument("--json", action="store_true", help="print the list as JSON")
     sp.set_defaults(func=run, action=_list)
 
     sp = add("show", "a part's catalogue fields and curves, and a PNG plot of every curve")
     sp.add_argument("part_id", metavar="ID")
     sp.add_argument("--plot", metavar="FILE.png", help="plot file (default ./<ID>.png, name made file-safe)")
     sp.add_argument("--no-plot", action="store_true", help="summary only")
+    sp.add_argument("--json", action="store_true", help="print the part and its curves as JSON")
     sp.set_defaults(func=run, action=_show)
 
     sp = add("query", "parts ranked by effective capacitance at a bias (and temperature)",
              epilog=QUERY_RULES, formatter_class=argparse.RawDescriptionHelpFormatter)
     sp.add_argument("--bias", type=arg_type("V", "--bias"), required=True, metavar="V", help="DC bias, volts")
-    sp.add_argument("--temp", type=arg_type(None, "--temp"), default=25.0, metavar="DEGC",
+    sp.add_argument("--temp", type=arg_type("degC", "--temp"), default=25.0, metavar="DEGC",
                     help="temperature in degC (default 25, the reference temperature)")
-    sp.add_argument("--temp-tol", type=arg_type(None, "--temp-tol"), default=2.0, metavar="DEGC",
+    sp.add_argument("--temp-tol", type=arg_type("degC", "--temp-tol"), default=2.0, metavar="DEGC",
                     help="curves within this many degC of --temp count as measured at it (default 2)")
-    sp.add_argument("--min", dest="min_C", type=arg_type("F", "--min"), metavar="C",
+    sp.add_argument("--min", dest="min_C", type=arg_type("F", "--min", ceramic=True), metavar="C",
                     help="only parts giving at least this capacitance, e.g. 2.2u")
     sp.add_argument("--case", metavar="CODE", help="only this EIA case code, e.g. 0603")
-    sp.add_argument("--class", dest="class_code", metavar="CODE", help="only this class code, e.g. X7R")
+    sp.add_argument("--class", dest="class_code", metavar="CODE", type=_class_code,
+                    help="only this class code, e.g. X7R (any case)")
     sp.add_argument("--branch", choices=("rising", "falling"), help="only curves of this sweep branch")
     sp.add_argument("--origin", choices=("lot summary", "measured", "supplier claim"),
                     help="only curves of this origin")
@@ -137,7 +153,7 @@ def register(subparsers) -> None:
 
 
 def _no_action(args) -> int:
-    args.parser.print_help()
+    args.parser.print_help(sys.stderr)
     return 2
 
 
@@ -250,6 +266,10 @@ def _list(args) -> int:
         counts: dict[str, int] = {}
         for rec in lib.curves():
             counts[rec.part_id] = counts.get(rec.part_id, 0) + 1
+        if args.json:
+            print(json.dumps([{**p.as_dict(), "n_curves": counts.get(p.part_id, 0)} for p in parts],
+                             indent=2))
+            return 0
         if not parts:
             print(f"{lib.where}: no parts")
             return 0
@@ -269,6 +289,14 @@ def _show(args) -> int:
     with _open(args, create=False) as lib:
         part = lib.part(args.part_id)
         records = lib.curves(part.part_id)
+        target = None
+        if not args.no_plot:
+            target = Path(args.plot) if args.plot else Path.cwd() / f"{safe_stem(part.part_id)}.png"
+            plot_part(part, records, target)
+        if args.json:
+            print(json.dumps({"part": part.as_dict(), "curves": [_curve_summary(r) for r in records],
+                              "plot": str(target) if target else None}, indent=2))
+            return 0
         print(f"part {part.part_id}: {part.description}")
         for name, value in (("nominal", format_value(part.nominal_C_F, "F") if part.nominal_C_F else None),
                             ("tolerance", part.tolerance), ("rated", format_value(part.rated_V, "V")
@@ -283,14 +311,24 @@ def _show(args) -> int:
             stats = getattr(c, "stats", None) or {}
             r2 = stats.get("r2")
             print(f"  curve {rec.curve_id}: {rec.origin}, sample {rec.sample_id or '-'}, {rec.branch or '-'}, "
-                  f"{rec.temp_C:g} degC, model {rec.model}, {lo:g}..{hi:g} V, "
+                  f"{rec.temp_C:.1f} degC, model {rec.model}, {lo:g}..{hi:g} V, "
                   f"C({lo:g} V) = {format_value(float(c.C(lo)), 'F')}, C({hi:g} V) = "
                   f"{format_value(float(c.C(hi)), 'F')}" + (f", r2 {r2:.5f}" if isinstance(r2, float) else ""))
-        if not args.no_plot:
-            target = Path(args.plot) if args.plot else Path.cwd() / f"{safe_stem(part.part_id)}.png"
-            plot_part(part, records, target)
+        if target is not None:
             print(f"plot: {target}")
     return 0
+
+
+def _curve_summary(rec) -> dict:
+    """One stored curve as plain data: what `library show` prints, with SI units in the names."""
+    c = rec.curve
+    lo, hi = rec.valid_range_V
+    stats = getattr(c, "stats", None) or {}
+    return {"curve_id": rec.curve_id, "origin": rec.origin, "sample_id": rec.sample_id,
+            "branch": rec.branch, "temp_C": rec.temp_C, "model": rec.model,
+            "valid_range_V": [lo, hi], "C_at_low_F": float(c.C(lo)), "C_at_high_F": float(c.C(hi)),
+            "r2": stats.get("r2") if isinstance(stats.get("r2"), float) else None,
+            "esr_ohm": rec.esr_ohm, "run_path": rec.run_path}
 
 
 def _query(args) -> int:
@@ -304,7 +342,7 @@ def _query(args) -> int:
         return 0
     head = f"C at {args.bias:g} V, {args.temp:g} degC"
     covered = [r for r in results if r.covered]
-    print(f"{'rank':>4}  {'part':<16} {head:>24} {'u(C)':>10} {'of nominal':>10}  {'origin':<14} curves")
+    print(f"{'rank':>4}  {'part':<16} {head:>24} {'u(C)':>10} {'C/nominal':>10}  {'origin':<14} curves")
     for i, r in enumerate(covered, start=1):
         u = format_value(r.u_C_F, "F") if r.u_C_F is not None else "n/a"
         pct = f"{r.retained_pct:.1f} %" if r.retained_pct is not None else "?"

@@ -205,6 +205,8 @@ def _report(result) -> int:
               f"(sha256 {result.points_sha256})")
     else:
         print(f"benchkit: run {result.run_id} aborted: {result.reason}", file=sys.stderr)
+        if result.supply_safe:  # said only when the supply's own read-back confirmed it
+            print("benchkit: the bias supply is at 0 V with its output off", file=sys.stderr)
         print(f"benchkit: {result.n_points} of {result.n_planned} points saved in {result.run_dir}; "
               f"continue with: benchkit measure --resume {result.run_dir}", file=sys.stderr)
     return result.exit_code

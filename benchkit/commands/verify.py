@@ -22,6 +22,7 @@ EPILOG = (
 
 
 def register(subparsers) -> None:
+    from benchkit.units import arg_type
     from benchkit.verify.uncertainty import DEFAULT_METER_ACCURACY_PCT
 
     p = subparsers.add_parser(
@@ -53,9 +54,12 @@ def register(subparsers) -> None:
                    help="judge samples measured at another frequency, AC level or temperature than "
                         "the claim's as if at the claim's (recorded in the report); otherwise they "
                         "are not decidable (exit 3)")
-    p.add_argument("--lot-size", type=int, help="lot size, to judge the lot by ISO 2859-1")
+    p.add_argument("--lot-size", type=arg_type("count", "--lot-size"),
+                   help="lot size, to judge the lot by ISO 2859-1 (2000, 10k)")
     p.add_argument("--aql", type=float, default=1.0, help="AQL in %% with --lot-size (default 1.0)")
     p.add_argument("--level", default="II", help="inspection level with --lot-size (default II)")
+    p.add_argument("--json", action="store_true",
+                   help="print the verification (the report's JSON document) on stdout")
     p.set_defaults(func=run)
 
 
@@ -90,11 +94,49 @@ def run(args) -> int:
                        args.meter_accuracy_pct, args.aging_k, plan,
                        accept_other_conditions=args.accept_other_conditions)
     html_path, json_path = write_report(v, args.out)
+    if args.json:
+        print(json_path.read_text(encoding="utf-8"), end="")
+        return EXIT_BY_VERDICT.get(v.verdict, EXIT_UNDECIDED)
     for s in v.samples:
         print(f"{s.sample.sample_id}: {s.verdict}" + (f"  [{'; '.join(s.flags)}]" if s.flags else ""))
+        for line in sample_details(s):
+            print(f"    {line}")
     for k in skipped:
         print(f"skipped {k.sample_id} ({k.part_id}): {k.reason}")
     print(f"lot of {part_id}: {v.verdict} (rule: {args.rule}, k = {args.k:g}; {v.lot.rule})")
     print(f"report: {html_path}")
     print(f"        {json_path}")
     return EXIT_BY_VERDICT.get(v.verdict, EXIT_UNDECIDED)
+
+
+def sample_details(s) -> list[str]:
+    """Why a sample got its verdict, in plain words: its worst point, and what was not decidable."""
+    from benchkit.units import format_value
+
+    out = []
+    decided = [p for p in s.points if p.measured_F is not None and p.budget is not None]
+    if decided:
+        def margin_pct(p):  # distance inside the nearer tolerance limit, % of the claimed value
+            d = p.decision
+            return 100.0 * min(p.measured_F - d.tol_lo, d.tol_hi - p.measured_F) / p.claimed_F
+
+        w = min(decided, key=margin_pct)
+        m = margin_pct(w)
+        where = "inside" if m >= 0 else "outside"
+        dev = 100.0 * (w.measured_F / w.claimed_F - 1.0)
+        out.append(f"worst point {w.bias_V:g} V: measured {format_value(w.measured_F, 'F')}, "
+                   f"claim {format_value(w.claimed_F, 'F')} ({dev:+.1f} %); "
+                   f"{abs(m):.1f} % of the claim {where} the tolerance limit, "
+                   f"U = {100.0 * w.decision.U / w.claimed_F:.2f} % (k = {w.budget.k:g})")
+    outside = [p for p in s.points if p.measured_F is None]
+    if outside:
+        lo, hi = s.sample.curve.valid_range_V
+        volts = ", ".join(f"{p.bias_V:g}" for p in outside)
+        out.append(f"not decidable at {volts} V: outside the measured range {lo:.4g}..{hi:.4g} V "
+                   f"of this branch (curves are never extrapolated)")
+    zone = [p for p in decided if p.decision.verdict == "not decidable"]
+    if zone:
+        volts = ", ".join(f"{p.bias_V:g}" for p in zone)
+        out.append(f"not decidable at {volts} V: within U of a tolerance limit (between the "
+                   f"acceptance and rejection limits of the rule)")
+    return out

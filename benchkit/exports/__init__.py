@@ -89,7 +89,8 @@ def render(curve, fmt: str, *, esr_ohm: float | None = None, name: str | None = 
                                 touchstone_version=touchstone_version, source_note=source_note,
                                 out_suffix=out_suffix)
     if fmt == "csv":
-        return curve_csv(curve) if n_points is None else curve_csv(curve, n_points=n_points)
+        return curve_csv(curve, source_note=source_note) if n_points is None else \
+            curve_csv(curve, n_points=n_points, source_note=source_note)
     if fmt == "json":
         text = curve.to_json()
         return text if text.endswith("\n") else text + "\n"

@@ -23,6 +23,7 @@ from benchkit.sweep.recovery import LinkRecoveries
 from benchkit.sweep.runlog import RunLog, join_flags
 from benchkit.sweep.safety import Guarded, GuardedClock, SignalGuard
 from benchkit.sweep.temperature import TemperatureVisits
+from benchkit.units import format_value
 
 
 class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureVisits,
@@ -148,7 +149,7 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
             self.n_new += 1
         if self.progress is not None:
             c = row["C_F"]
-            ctext = "overload" if c is None else f"C = {c:.5g} F"
+            ctext = "overload" if c is None else f"C = {format_value(c, 'F', digits=5)}"
             self.progress.point(self.done, f"{p.sample_id} {p.branch} {p.bias_V:+g} V: {ctext}")
         return row
 

@@ -383,8 +383,29 @@ def _parse_samples(value: Any, where: str) -> list[dict] | None:
     return out
 
 
+BIAS_KEYS = ("points_V", "start_V", "stop_V", "step_V", "fraction_of_rated", "steps",
+             "branches", "polarity", "repeats")
+
+
+def _bias_text_hint(v: Any, field: str, where: str) -> UserError:
+    """A bias written as text ("4u7", "12V"): say what it would read as and how to write it."""
+    from benchkit.units import format_value, parse_value
+
+    try:
+        x = parse_value(v, "V", field)
+    except UserError:
+        return UserError(f"{where}: field '{field}': must be a number (got {safe_repr(v)}); write volts "
+                         f"as a TOML number without quotes, e.g. 12 or 4.7")
+    rkm = f" ('{v}' is the IEC 60062 way of writing {format_value(abs(x) * 1e6, '', digits=4)} "\
+          f"micro, a capacitance value)" if "u" in str(v) or "\u00b5" in str(v) else ""
+    return UserError(f"{where}: field '{field}': must be a number (got {safe_repr(v)}); as text it reads as "
+                     f"{format_value(x, 'V')}{rkm}: write volts as a TOML number without quotes, "
+                     f"e.g. 4.7 for 4.7 V")
+
+
 def _parse_bias(raw: Mapping, where: str) -> dict:
     f = _Fields(raw, where, "bias.")
+    f.refuse_unknown(BIAS_KEYS)  # a typo (stpes) is named before a field is reported missing
     b: dict[str, Any] = {"points_V": None, "start_V": None, "stop_V": None, "step_V": None,
                          "fraction_of_rated": None, "steps": None}
     kinds = [k for k in ("points_V", "step_V", "fraction_of_rated") if raw.get(k) is not None]
@@ -399,6 +420,8 @@ def _parse_bias(raw: Mapping, where: str) -> dict:
             raise UserError(f"{where}: field 'bias.points_V': must be a non-empty list of volts")
         clean = []
         for i, v in enumerate(pts):
+            if isinstance(v, str):
+                raise _bias_text_hint(v, f"bias.points_V[{i}]", where)
             if not _is_number(v) or v < 0 or v > MAX_BIAS_V:
                 raise UserError(
                     f"{where}: field 'bias.points_V[{i}]': must be a bias magnitude from 0 to "
@@ -409,6 +432,9 @@ def _parse_bias(raw: Mapping, where: str) -> dict:
             clean.append(float(v))
         b["points_V"] = clean
     elif kinds == ["step_V"]:
+        for k in ("start_V", "stop_V", "step_V"):
+            if isinstance(raw.get(k), str):
+                raise _bias_text_hint(raw[k], f"bias.{k}", where)
         b["start_V"] = f.number("start_V", default=0.0, lo=0.0, hi=MAX_BIAS_V)
         b["stop_V"] = f.number("stop_V", required=True, lo=0.0, hi=MAX_BIAS_V)
         b["step_V"] = f.number("step_V", required=True, positive=True, hi=MAX_BIAS_V)
@@ -771,6 +797,13 @@ class _Fields:
         if not isinstance(v, list) or any(x not in choices for x in v):
             raise self._err(key, f"must be a list of {', '.join(map(repr, choices))} (got {safe_repr(v)})")
         return list(v)
+
+    def refuse_unknown(self, known: Iterable[str]) -> None:
+        """Refuse a key not in `known` first, with the nearest known spelling."""
+        known = tuple(known)
+        unknown = sorted(set(self.data) - set(known), key=str)
+        if unknown:
+            raise self._err(unknown[0], "unknown field" + did_you_mean(unknown[0], known))
 
     def done(self) -> None:
         unknown = sorted(set(self.data) - self._seen, key=str)

@@ -1,4 +1,5 @@
-"""Progress of a sweep: a bar with ETA on a terminal, one plain line per point otherwise.
+"""Progress of a sweep: a bar with ETA on a terminal; otherwise (a log file, CI) a compact
+plain line at every tenth of the sweep and at the last point, not one per point.
 
 The ETA comes from the wall time spent per point in this session, so it is right for real
 runs and for virtual-clock runs alike (and after a resume it ignores the earlier session).
@@ -25,6 +26,9 @@ def format_duration(seconds: float) -> str:
 class Progress:
     """Reports points done out of the total; `tty=None` asks the stream."""
 
+    # Without a terminal, a line each time another STEP_PCT of the points is done.
+    STEP_PCT = 10
+
     def __init__(self, stream: TextIO | None = None, tty: bool | None = None, width: int = 28,
                  wall: Callable[[], float] = time.monotonic):
         self.stream = stream if stream is not None else sys.stderr
@@ -39,10 +43,12 @@ class Progress:
         self._first_done = 0
         self._t0 = 0.0
         self._open_line = False
+        self._next_pct = 0.0
 
     def start(self, total: int, done: int = 0) -> None:
         self.total, self.done, self._first_done = total, done, done
         self._t0 = self.wall()
+        self._next_pct = self._milestone(done)
         if not self.tty:
             self._write(f"sweep: {total} points planned" + (f", {done} already done" if done else "") + "\n")
 
@@ -62,8 +68,14 @@ class Progress:
             bar = "#" * fill + "." * (self.width - fill)
             self._write(f"\r[{bar}] {done}/{self.total} {pct:3.0f}% {eta_text}  {text}\x1b[K")
             self._open_line = True
-        else:
+        elif pct >= self._next_pct or done >= self.total:
             self._write(f"point {done}/{self.total} ({pct:.0f}%): {text}; {eta_text}\n")
+            self._next_pct = self._milestone(done)
+
+    def _milestone(self, done: int) -> float:
+        """The next percentage at which the plain mode writes a line."""
+        pct = 100.0 * done / self.total if self.total else 100.0
+        return (int(pct // self.STEP_PCT) + 1) * self.STEP_PCT
 
     def note(self, text: str) -> None:
         self._end_line()

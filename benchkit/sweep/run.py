@@ -363,7 +363,10 @@ def _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, done
                 log.event(t, "abort", reason=reason, points_new=engine.n_new,
                           caution=f"parts may still hold charge: wait {wait_s:g} s and check before handling")
                 if progress is not None:
-                    progress.note(f"benchkit: parts may still hold charge; wait {wait_s:g} s and check before handling")
+                    state = ("the bias supply is at 0 V with its output off (read back); " if safe
+                             else "")
+                    progress.note(f"benchkit: {state}parts may still hold charge; wait {wait_s:g} s "
+                                  "and check before handling")
             if not safe:
                 why = getattr(raw_supply, "last_safe_off_error", None) or "safe_off could not confirm 0 V and output off"
                 log.event(t, "supply_not_confirmed_safe",

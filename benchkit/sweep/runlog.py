@@ -15,8 +15,8 @@ the chain on purpose.
 
 from __future__ import annotations
 
+import contextlib
 import csv
-import fcntl
 import hashlib
 import io
 import json
@@ -36,6 +36,9 @@ RUN_FILE = "run.json"
 POINTS_FILE = "points.csv"
 CHAIN_FILE = "points.chain"
 _DIGEST_LINE = 65  # 64 hex digits and a newline
+# The writer's lock beside the data (filelock: flock on Linux and macOS, msvcrt on Windows).
+# The file may stay after the run; only a live lock on it means a writer is at work.
+LOCK_FILE = "run.lock"
 
 COLUMNS = (
     "run_id", "sample_id", "part_id", "channel", "step_index", "branch", "repeat",
@@ -232,10 +235,11 @@ class RunLog:
     """Owns one run directory while a sweep writes into it (an exclusive lock on points.csv)."""
 
     def __init__(self, run_dir: Path, meta: dict, fh, rows: list[dict[str, str]], chain_fh=None,
-                 chain_prev: bytes | None = None):
+                 chain_prev: bytes | None = None, lock=None):
         self.dir = run_dir
         self.meta = meta
         self._fh = fh
+        self._lock_held = lock
         self._chain = chain_fh
         self._prev = chain_start(str(meta.get("run_id"))) if chain_prev is None else chain_prev
         self.rows = rows  # rows already in points.csv before this session
@@ -249,14 +253,14 @@ class RunLog:
         if d.exists() and (not d.is_dir() or any(d.iterdir())):
             raise UserError(f"{d}: already exists and is not empty; choose a new --out, or --resume {d}")
         created = not d.exists()
-        fh = cfh = None
+        fh = cfh = lock = None
         try:
             d.mkdir(parents=True, exist_ok=True)
             fh = open(d / POINTS_FILE, "a+", encoding="utf-8", newline="")
-            cls._lock(fh, d)
+            lock = cls._lock(fh, d)
             meta["points_chain"] = CHAIN_FILE
             cfh = open(d / CHAIN_FILE, "a+", encoding="ascii", newline="")  # written by os.write
-            log = cls(d, meta, fh, [], cfh)
+            log = cls(d, meta, fh, [], cfh, lock=lock)
             log._append_bytes((",".join(COLUMNS) + "\n").encode("utf-8"))
             log.save()
         except (OSError, RunFileError) as exc:
@@ -265,7 +269,9 @@ class RunLog:
                 cfh.close()
             if fh is not None:
                 fh.close()
-                for name in (POINTS_FILE, CHAIN_FILE, RUN_FILE):
+                if lock is not None:
+                    lock.release()
+                for name in (POINTS_FILE, CHAIN_FILE, RUN_FILE, LOCK_FILE):
                     try:
                         (d / name).unlink()
                     except OSError:
@@ -291,7 +297,7 @@ class RunLog:
             fh = open(path, "r+", encoding="utf-8", newline="")
         except FileNotFoundError:
             raise UserError(f"{path}: not found; is {d} a run directory?") from None
-        cls._lock(fh, d)
+        lock = cls._lock(fh, d)
         try:
             cpath = d / CHAIN_FILE
             if meta.get("points_chain") != CHAIN_FILE or not cpath.exists():
@@ -303,6 +309,7 @@ class RunLog:
             chain_fh = open(cpath, "r+b")
         except BaseException:
             fh.close()
+            cls._unlock(lock, d)
             raise
         try:
             if path.stat().st_size != end:
@@ -315,21 +322,40 @@ class RunLog:
         except OSError as exc:
             fh.close()
             chain_fh.close()
+            cls._unlock(lock, d)
             raise UserError(_write_problem(path, exc)) from None
         chain_fh.seek(0, os.SEEK_END)
         prev = chain_start(str(meta.get("run_id")))
         for line in data.split(b"\n")[:-1]:
             prev = chain_next(prev, line + b"\n")
         fh.seek(0, os.SEEK_END)
-        return cls(d, meta, fh, rows, chain_fh, prev)
+        return cls(d, meta, fh, rows, chain_fh, prev, lock=lock)
 
     @staticmethod
-    def _lock(fh, d: Path) -> None:
+    def _lock(fh, d: Path):
+        """One writer per run directory, on every platform filelock serves (imported here,
+        so building the CLI needs no platform module)."""
+        from filelock import FileLock, Timeout
+
+        path = d / LOCK_FILE
+        lock = FileLock(str(path), timeout=0)
+        made = not path.exists()
         try:
-            fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
+            lock.acquire()
+        except Timeout:
             fh.close()
             raise UserError(f"{d}: another benchkit process is writing this run; wait for it or stop it first") from None
+        lock.benchkit_made = made  # the writer that made the file takes it away again on close
+        return lock
+
+    @staticmethod
+    def _unlock(lock, d: Path) -> None:
+        """Release; the writer that made the lock file takes it away, so the folder is left as
+        it was found (a refused resume changes nothing there)."""
+        lock.release()
+        if getattr(lock, "benchkit_made", False):
+            with contextlib.suppress(OSError):
+                (d / LOCK_FILE).unlink()
 
     # -- writing -------------------------------------------------------------
     def append_point(self, row: Mapping[str, Any]) -> None:
@@ -390,7 +416,10 @@ class RunLog:
         if self._chain is not None and not self._chain.closed:
             self._chain.close()
         if self._fh is not None and not self._fh.closed:
-            self._fh.close()  # releases the lock
+            self._fh.close()
+        if self._lock_held is not None:
+            self._unlock(self._lock_held, self.dir)
+            self._lock_held = None
 
 
 def _write_all(fd: int, data: bytes) -> None:

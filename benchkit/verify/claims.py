@@ -25,6 +25,7 @@ Parsing is strict: every problem is one line naming the file and line.
 
 from __future__ import annotations
 
+import csv
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -202,7 +203,7 @@ def parse_claim(text: str, name: str = "<claim>") -> Claim:
                                 f"{bad}; retype it")
             header[key] = (value, lineno)
             continue
-        cells = [c.strip() for c in line.split(",")]
+        cells = _cells(line, where)
         if columns is None:
             columns, col_line = cells, lineno
             _check_columns(columns, where)
@@ -254,6 +255,15 @@ def parse_claim(text: str, name: str = "<claim>") -> Claim:
         C = y_arr * C_COLUMNS[ycol]
     return Claim(path=name, bias_V=np.asarray(bias, dtype=float), C_F=C, column=ycol,
                  notes=notes, lines=lines, **meta)
+
+
+def _cells(line: str, where: str) -> list[str]:
+    """One CSV row by the stdlib reader, so a spreadsheet's quoted cells ("0.5","9.8e-6") read."""
+    try:
+        return [c.strip() for c in next(csv.reader([line], strict=True))]
+    except csv.Error as exc:
+        raise UserError(f"{where}: not a CSV row ({exc}); write cells separated by commas, "
+                        f"quotes around a cell only if it needs them") from None
 
 
 def _check_columns(columns: list[str], where: str) -> None:

@@ -24,11 +24,12 @@ CAUTION = ("This report judges the samples measured against the claim under the 
            "review by a qualified person. Check the conditions flagged before acting on it.")
 
 
-def _figure(width_in: float, height_in: float):
+def _figure(figsize):
+    """A bare Figure on an Agg canvas: no pyplot, so the caller's backend is left alone."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(width_in, height_in))
+    fig = Figure(figsize=figsize, layout="constrained")  # labels inside the picture
     FigureCanvasAgg(fig)
     return fig, fig.add_subplot(1, 1, 1)
 
@@ -47,7 +48,7 @@ def _png(fig) -> str:
 
 def plot_curves(v) -> str:
     """The claim with its band, every measured curve, the decided points with their U."""
-    fig, ax = _figure(7.5, 4.6)
+    fig, ax = _figure((7.5, 4.6))
     claim = v.claim
     lo_V, hi_V = claim.valid_range_V
     grid = np.linspace(lo_V, hi_V, 300)
@@ -68,16 +69,21 @@ def plot_curves(v) -> str:
         es = [p.budget.U * 1e6 for p in s.points if p.measured_F is not None]
         ax.errorbar(xs, ys, yerr=es, fmt="o", ms=3, color=col, capsize=2)
     ax.set_xlabel("DC bias (V)")
-    ax.set_ylabel("capacitance (uF)")
-    ax.set_title(f"{claim.part_id}: claimed and measured C(V)")
+    ax.set_ylabel("capacitance (\u00b5F)")
+    cond = ", ".join(x for x in (f"{claim.freq_Hz:g} Hz" if claim.freq_Hz else "",
+                                 f"{claim.ac_level_Vrms:g} Vrms" if claim.ac_level_Vrms else "",
+                                 f"{claim.temp_C:g} \u00b0C" if claim.temp_C is not None else "") if x)
+    ax.set_title(f"{claim.part_id}: claimed and measured C(V)" + (f" \u2014 claim at {cond}" if cond else ""),
+                 fontsize=10)
+    ax.ticklabel_format(axis="both", style="plain", useOffset=False)
     ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=7, loc="best")
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))  # beside the data, not on it
     return _png(fig)
 
 
 def plot_deviations(v) -> str:
     """Deviation from the claim per claimed bias, with U, the tolerance and acceptance limits."""
-    fig, ax = _figure(7.5, 4.0)
+    fig, ax = _figure((7.5, 4.0))
     claim = v.claim
     bias = claim.bias_V
     c = np.atleast_1d(claim.C(bias))
@@ -108,8 +114,9 @@ def plot_deviations(v) -> str:
     if v.rule == "guarded":
         title += "; grey ticks = acceptance limits"
     ax.set_title(title, fontsize=10)
+    ax.ticklabel_format(axis="both", style="plain", useOffset=False)
     ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=7, loc="best", ncol=2)
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return _png(fig)
 
 

@@ -20,7 +20,10 @@ from benchkit.exports.table_csv import COLUMNS, curve_csv, read_curve_csv
 def test_csv_columns_and_values(ex):
     curve = ex.fitted_curve("tanh")
     text = curve_csv(curve, n_points=11)
-    rows = list(csv.reader(io.StringIO(text)))  # read back with the standard library's csv reader
+    block = [ln for ln in text.splitlines() if ln.startswith("#")]
+    assert text.startswith("# format = benchkit-curve-table\n") and any("units =" in ln for ln in block)
+    # read back with the standard library's csv reader, the '#' block skipped as comments
+    rows = list(csv.reader(ln for ln in io.StringIO(text) if not ln.startswith("#")))
     assert tuple(rows[0]) == COLUMNS == ("bias_V", "C_F", "delta_C_pct", "u_C_F")
     data = np.array(rows[1:], dtype=float)
     lo, hi = curve.valid_range_V

@@ -143,7 +143,7 @@ def test_every_consumer_leaves_the_same_points_out(tmp_path, capsys):
     kept = len(pts) - 3
 
     assert main(["fit", str(run), "--out", str(tmp_path / "c.json"), "--model", "tanh"]) == 0
-    assert "3 point(s) left out" in capsys.readouterr().out
+    assert "3 point(s) left out" in capsys.readouterr().err  # notes go to stderr
     assert Curve.load(tmp_path / "c.json").stats["n_points"] == kept
 
     part = {"id": "BD-1001", "description": "10 uF 6.3 V X5R 0402", "nominal_C_F": 10e-6,

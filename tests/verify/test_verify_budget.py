@@ -157,10 +157,11 @@ def test_budget_refuses_what_it_cannot_know(library):
 def test_budget_command(library, capsys):
     code = main(["budget", "BD-1004", "--bias", "12", "--temp", "85", "--age-hours", "10000",
                  "--need", "4u7", "--resistor", "1k5", "--library", str(library)])
-    out = capsys.readouterr().out
+    captured = capsys.readouterr()
+    out, err = captured.out, captured.err
     assert code == EXIT_OK
-    assert "in parallel" in out and "tau =" in out and "caution: Verify" in out
-    assert "data sheet" in out
+    assert "in parallel" in out and "tau =" in out
+    assert "caution: Verify" in err and "data sheet" in err and "caution" not in out  # notes: stderr
     code = main(["budget", "BD-1004", "--bias", "12", "--need", "4u7", "--library", str(library), "--json"])
     doc = json.loads(capsys.readouterr().out)
     prod = math.prod(f["worst"] for f in doc["factors"])
