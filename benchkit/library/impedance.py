@@ -49,22 +49,21 @@ def answer(curve, bias_V: float, freq_Hz: float | None = None) -> dict:
 
 def plot_impedance(curve, biases_V, path: str | Path, title: str = "") -> Path:
     """|Z| and ESR against frequency (log-log) at each bias, one PNG."""
-    import matplotlib
-
-    matplotlib.use("Agg")
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
     from benchkit.exports import freq_grid, wideband_fit
 
     fig = Figure(figsize=(7.5, 6.0), dpi=110)
+    FigureCanvasAgg(fig)  # draws to memory; the process's backend is left alone
     ax_z, ax_r = fig.add_subplot(2, 1, 1), fig.add_subplot(2, 1, 2)
     for V in biases_V:
         fit = wideband_fit(curve, V)
         f = freq_grid(fit, 300)
         ax_z.loglog(f, fit.Z_abs(f), label=f"{fit.bias_V:g} V")
         ax_r.loglog(f, fit.esr_ohm(f), label=f"{fit.bias_V:g} V")
-    ax_z.set_ylabel("|Z| (ohm)")
-    ax_r.set_ylabel("ESR (ohm)")
+    ax_z.set_ylabel("|Z| (\u03a9)")
+    ax_r.set_ylabel("ESR (\u03a9)")
     ax_r.set_xlabel("frequency (Hz)")
     for ax in (ax_z, ax_r):
         ax.grid(True, which="both", alpha=0.3)

@@ -1,6 +1,7 @@
 """PNG plots drawn on the server: Matplotlib's object API with the Agg canvas chosen explicitly.
 
-No pyplot and no matplotlib.use(): a Figure with a FigureCanvasAgg is thread-safe per figure
+Neither the state-machine interface nor a backend switch: a Figure with a FigureCanvasAgg is
+thread-safe per figure
 and leaves the process's backend alone (the web server draws from several threads).
 """
 
