@@ -127,14 +127,14 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, FrequencyLis
         elif row["temp_C"] is not None and \
                 abs(row["temp_C"] - self._ref_temp) > self.plan.limits["temp_tolerance_C"]:
             row["flags"] = join_flags([*filter(None, row["flags"].split(";")), "temp_change"])
-        with self.guard.transaction():  # a row (with its frequency list) is written whole or not at all
-            self.log.append_point(row)
-            for r in extra:
-                self.log.append_point(r)
+        with self.guard.transaction():  # a row (with its frequency list) is written whole or not
+            self.log.append_point(row)  # at all, and counted with it: a signal deferred to the
+            for r in extra:             # end of the write must not find the row on disk but not
+                self.log.append_point(r)  # in the count
+            self.done += 1
+            self.n_new += 1
         if sw.adaptive is not None:  # its planner needs the rows; other samples' stay on disk
             self._measured.setdefault(p.sample_id, []).append(row)
-        self.done += 1
-        self.n_new += 1
         if self.progress is not None:
             c = row["C_F"]
             ctext = "overload" if c is None else f"C = {c:.5g} F"
