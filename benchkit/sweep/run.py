@@ -163,7 +163,10 @@ def resume_sweep(
             log.event(None, "resume", points_done=len(log.rows), instruments=inst.record(),
                       clock="virtual" if getattr(clock, "virtual", False) else "real",
                       above_rated_confirmed_by=consent)
-            log.set_status("running")
+            try:
+                log.set_status("running")
+            except RunFileError as exc:  # e.g. the disk is still full: nothing was energised
+                raise UserError(f"{exc}; the run was not resumed, nothing was measured") from None
             _say_summary(progress, stored, sweeps, above)
             if before_output is not None:
                 before_output()

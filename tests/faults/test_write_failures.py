@@ -247,3 +247,31 @@ def test_the_static_check_finds_a_direct_write(tmp_path):
     bad.write_text("from pathlib import Path\nPath('x').write_text('y')\nopen('z', 'w')\n"
                    "import matplotlib.pyplot as plt\nplt.savefig('p.png')\n")
     assert len(_write_calls(bad)) == 3
+
+
+def test_resume_on_a_still_full_disk_is_one_line_and_touches_nothing(tmp_path, monkeypatch, capsys):
+    plan = write_plan(tmp_path / "plan.toml")
+    out = tmp_path / "run"
+    with monkeypatch.context() as m:
+        with keep_benches(m):
+            FullDisk(m, out, after_rows=4, fsync_too=True)
+            assert measure(plan, out) == 1
+    capsys.readouterr()
+    rows_before = (out / "points.csv").read_bytes()
+    for fsync_too in (True, False):  # the disk is still full: run.json cannot be rewritten either
+        with monkeypatch.context() as m:
+            with keep_benches(m) as made:
+                disk = FullDisk(m, out, after_rows=0, fsync_too=fsync_too)
+                disk.armed = True
+                real_replace = os.replace
+                m.setattr(os, "replace", lambda a, b: (_ for _ in ()).throw(
+                    OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))) if str(b).startswith(str(out))
+                    else real_replace(a, b))
+                code = main(["measure", "--resume", str(out)])
+        err = capsys.readouterr().err
+        lines = [ln for ln in err.splitlines() if ln.strip()]
+        assert code == 2 and "Traceback" not in err, err
+        assert len(lines) == 1 and lines[0].startswith("benchkit: error: ") and "free space" in lines[0], err
+        assert (out / "points.csv").read_bytes() == rows_before
+        for bench in made:  # the bias was never put on
+            assert bench.supply_state()["output_on"] is False
