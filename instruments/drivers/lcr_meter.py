@@ -23,7 +23,7 @@ _PREFIX = {"": 1.0, "p": 1e-12, "n": 1e-9, "u": 1e-6, "m": 1e-3, "k": 1e3, "M": 
 _NUMBER_UNIT_RE = re.compile(
     r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*([A-Za-z]*)\s*$")
 # the unit each field carries, per function: primary is always a capacitance
-_UNITS = {"CPD": ("F", ""), "CSD": ("F", ""), "CSRS": ("F", "OHM")}
+_UNITS = {"CPD": ("F", ""), "CSD": ("F", ""), "CSRS": ("F", "OHM"), "ZTD": ("OHM", "DEG")}
 
 
 @dataclass(frozen=True)

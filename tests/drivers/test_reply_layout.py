@@ -206,7 +206,7 @@ def test_a_list_sweep_over_frequency(tmp_path):
         with pytest.raises(ValueError):
             m.measure_list("freq", [1e3] * 5)         # more than max_points: nothing sent
         with pytest.raises(ValueError):
-            m.measure_list("freq", [1e7])             # outside freq_Hz's range
+            m.measure_list("freq", [2e7])             # outside freq_Hz's range (to 10 MHz)
         with pytest.raises(ValueError):
             m.measure_list("bias", [1.0])             # no list over bias in this profile
     assert [r.C_F for r in rows[:2]] == [1.0e-5, 9.9e-6] and rows[2].overload
