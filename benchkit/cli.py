@@ -20,7 +20,9 @@ SAFETY_NOTE = (
     "Safety: DC bias voltages and charged capacitors can shock, burn and damage parts. "
     "A capacitor keeps its charge after the supply is off: discharge it and check it with a "
     "meter before handling. Use current-limited supplies, guarded fixtures and the "
-    "interlocks your lab requires. This tool does not replace local electrical-safety codes, "
+    "interlocks your lab requires. A climate chamber has hot and cold surfaces and collects "
+    "condensation below the dew point: let it return to a safe temperature before opening it. "
+    "This tool does not replace local electrical-safety codes, "
     "your lab's safety rules or the judgement of a qualified person."
 )
 
