@@ -134,16 +134,20 @@ def format_table(results: dict) -> str:
         lines.append("")
     sk = b.get("soak")
     if sk is not None:
-        lines.append("Soak: peak memory of a long sweep over a short one (fresh processes)")
+        lines.append("Soak: peak memory of a long sweep over a short one, and of their resumes "
+                     "(fresh processes)")
         if "error" in sk:
             lines.append(f"  FAILED: {sk['error']}")
         else:
-            sh, lo = sk["short"], sk["long"]
-            lines.append(f"  {sh['points']} points: peak RSS {sh['peak_rss_bytes'] / 1e6:.1f} MB "
-                         f"({sh['wall_s']:.0f} s); {lo['points']} points: {lo['peak_rss_bytes'] / 1e6:.1f} MB "
-                         f"({lo['wall_s']:.0f} s)")
-            lines.append(f"  ratio {sk['peak_ratio']:.3f} (target <= {sk['target_ratio']:g}: "
-                         f"{'met' if sk['within_target'] else 'NOT met'}); "
-                         f"{sk['extra_bytes_per_point']:.1f} extra bytes per point")
+            for what, a, b, ratio in (("sweep", sk["short"], sk["long"], sk["peak_ratio"]),
+                                      ("resume", sk["short_resume"], sk["long_resume"],
+                                       sk["resume_peak_ratio"])):
+                lines.append(f"  {what:6} {sk['short_resume']['points']} points: peak RSS "
+                             f"{a['peak_rss_bytes'] / 1e6:.1f} MB ({a['wall_s']:.0f} s); "
+                             f"{sk['long_resume']['points']} points: {b['peak_rss_bytes'] / 1e6:.1f} MB "
+                             f"({b['wall_s']:.0f} s); ratio {ratio:.3f}")
+            lines.append(f"  target <= {sk['target_ratio']:g} for both: "
+                         f"{'met' if sk['within_target'] else 'NOT met'}; "
+                         f"{sk['extra_bytes_per_point']:.1f} extra bytes per point in the sweep")
         lines.append("")
     return "\n".join(lines)

@@ -10,6 +10,7 @@ import hashlib
 import json
 from typing import Any
 
+from benchkit.bounded import MAX_DEPTH, check_id, check_text, data_depth
 from benchkit.errors import UserError
 
 
@@ -37,7 +38,19 @@ def _as_user_error(exc: Exception, where: str) -> UserError:
     return UserError(text if text.startswith(where) else f"{where}: {text}")
 
 
+def _check_ids(doc: Any, where: str) -> None:
+    """A curve's ids reach terminals, CSV headers and web pages: bounded, printable
+    (benchkit.bounded, the same rule as the plan's and the run's ids)."""
+    if isinstance(doc, dict):
+        for field in ("part_id", "sample_id", "branch", "origin"):
+            if isinstance(doc.get(field), str):
+                check_id(doc[field], where, field)
+    if data_depth(doc) > MAX_DEPTH:
+        raise UserError(f"{where}: nested deeper than {MAX_DEPTH} levels; not a curve document")
+
+
 def curve_from_dict(doc: dict[str, Any], where: str):
+    _check_ids(doc, where)
     try:
         return curve_class().from_dict(doc, where)
     except fits_errors() as exc:
@@ -47,6 +60,14 @@ def curve_from_dict(doc: dict[str, Any], where: str):
 
 
 def curve_from_json(text: str, where: str):
+    check_text(text, where, "curve document")
+    try:
+        doc = json.loads(text)
+    except ValueError as exc:
+        raise UserError(f"{where}: not valid JSON ({exc})") from None
+    except RecursionError:
+        raise UserError(f"{where}: not valid JSON (nested too deeply to be a curve document)") from None
+    _check_ids(doc, where)
     try:
         return curve_class().from_json(text, where)
     except fits_errors() as exc:

@@ -32,7 +32,6 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
 
     def __init__(self, inst, sweeps, plan: Plan, log: RunLog, clock, progress, guard, done_rows):
         self.plan, self.sweeps, self.log, self.progress, self.guard = plan, sweeps, log, progress, guard
-        done_rows = [r for r in done_rows if not is_frequency_row(r)]  # a point's list rides with it
         self.clock = clock
         self.gclock = GuardedClock(clock, guard) if isinstance(guard, SignalGuard) else clock
         wrap = (lambda x: Guarded(x, guard)) if isinstance(guard, SignalGuard) else (lambda x: x)
@@ -43,20 +42,23 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
         chamber = getattr(inst, "chamber", None)
         self.chamber = wrap(chamber) if chamber is not None else None
         self.policy = dwell_policy(plan)
-        self.done = len(done_rows)
-        self.resumed = bool(done_rows)
+        self._measured: dict[str, list] = {}  # sample_id -> rows so far (adaptive planning)
+        adaptive = {sw.sample.sample_id for sw in sweeps if sw.adaptive is not None}
+        self.done, last = 0, None
+        for r in done_rows:  # one pass: a resume streams them from disk (runlog.StoredRows)
+            if is_frequency_row(r):  # a point's frequency list rides with it
+                continue
+            self.done, last = self.done + 1, r
+            if r["sample_id"] in adaptive:
+                self._measured.setdefault(r["sample_id"], []).append(r)
+        self.resumed = self.done > 0
         self.n_new = 0
         self.total = sum(len(sw.points) for sw in sweeps)
         self.t0 = clock.now()
-        self.t_offset = float(done_rows[-1]["t_s"] or 0.0) if done_rows else 0.0
+        self.t_offset = float(last["t_s"] or 0.0) if last is not None else 0.0
         self.current: PlannedPoint | None = None
         self.output_on = False
         self.output_off_done = False  # the normal end was reached: all points, output off
-        self._measured: dict[str, list] = {}  # sample_id -> rows so far (adaptive planning)
-        adaptive = {sw.sample.sample_id for sw in sweeps if sw.adaptive is not None}
-        for r in done_rows:
-            if r["sample_id"] in adaptive:
-                self._measured.setdefault(r["sample_id"], []).append(r)
         self._ref_temp = None
         self._dwell_readings: list = []  # (time, (C_F, D, Rs_ohm) or None) of the last dwell
         self._raw = {"meter": inst.meter, "supply": inst.supply, "scanner": inst.scanner,

@@ -242,7 +242,7 @@ def read_run_dir(run_dir: str | Path, *, sample: str | None = None,
         raise UserError(f"{path}: sha256 differs from the one in run.json; the points "
                         f"were changed after the run ended, so they are not {action}")
     if (run_dir / runlog.CHAIN_FILE).exists():  # an aborted run has no sha256: its rows' digests
-        runlog.check_chain(run_dir, path.read_bytes()[:end])
+        runlog.check_chain(run_dir, end)
     return RunData(run_dir, meta, path, sha, samples, exclude)
 
 

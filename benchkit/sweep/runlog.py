@@ -136,47 +136,161 @@ def read_points(run_dir: str | os.PathLike, chain: bool = True) -> tuple[list[di
     """The complete rows of points.csv and the byte length they occupy (a partial tail excluded).
 
     With `chain` (and a points.chain beside it) the rows are checked against their digests
-    and a last row whose digest never reached the disk is left out (the point in progress)."""
-    path = Path(run_dir) / POINTS_FILE
+    and a last row whose digest never reached the disk is left out (the point in progress).
+    For callers that need every row at once (fitting); a resume streams them (StoredRows)."""
+    scan = scan_points(run_dir, chain=chain)
+    return list(iter_rows(run_dir, scan.end)), scan.end
+
+
+class PointsScan:
+    """What one checked pass over points.csv found: rows kept, their byte end, the last row and
+    the chain digest after it (where a resumed session's first row continues the chain)."""
+
+    __slots__ = ("n_rows", "end", "last", "prev")
+
+    def __init__(self, n_rows: int, end: int, last: dict[str, str] | None, prev: bytes | None):
+        self.n_rows, self.end, self.last, self.prev = n_rows, end, last, prev
+
+
+def _complete_end(path: Path) -> tuple[int, int]:
+    """(complete lines, byte offset just after the last one) of a file, read in chunks."""
+    n = pos = end = 0
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 16), b""):
+            k = chunk.count(b"\n")
+            if k:
+                n += k
+                end = pos + chunk.rfind(b"\n") + 1
+            pos += len(chunk)
+    return n, end
+
+
+def _lines(path: Path, end: int):
+    """(line number, bytes) of the first `end` bytes of a file, one line at a time."""
+    with open(path, "rb") as fh:
+        pos = 0
+        for n, line in enumerate(fh, start=1):
+            if pos >= end:
+                return
+            pos += len(line)
+            yield n, line
+
+
+def _parse_line(path: Path, n: int, line: bytes) -> list[str]:
     try:
-        data = path.read_bytes()
-    except FileNotFoundError:
-        raise UserError(f"{path}: not found; is {run_dir} a run directory?") from None
-    end = data.rfind(b"\n") + 1  # 0 when not even the header is complete
-    try:
-        text = data[:end].decode("utf-8", errors="strict")
-        lines = list(csv.reader(io.StringIO(text, newline="")))
-    except UnicodeDecodeError as exc:
-        line = data[: exc.start].count(b"\n") + 1
-        raise UserError(f"{path}: line {line}: not UTF-8 text; the file is damaged or not from benchkit") from None
+        text = line.decode("utf-8", errors="strict")
+        fields = next(csv.reader([text.rstrip("\n")]), [])
+    except UnicodeDecodeError:
+        raise UserError(f"{path}: line {n}: not UTF-8 text; the file is damaged or not from benchkit") from None
     except csv.Error as exc:
         raise UserError(f"{path}: not a readable CSV file ({exc}); the file is damaged or not from benchkit") from None
-    if not lines or tuple(lines[0]) != COLUMNS:
+    return fields
+
+
+def _row(path: Path, n: int, line: bytes) -> dict[str, str]:
+    fields = _parse_line(path, n, line)
+    if len(fields) != len(COLUMNS):
+        raise UserError(f"{path}: line {n} has {len(fields)} fields, expected {len(COLUMNS)}; the file was edited or damaged")
+    for col, text in zip(COLUMNS, fields):
+        bad = control_char(text)
+        if bad is not None:
+            raise UserError(f"{path}: line {n}: column '{col}' holds the control character "
+                            f"{bad}; the file was edited or damaged")
+    return dict(zip(COLUMNS, fields))
+
+
+def iter_rows(run_dir: str | os.PathLike, end: int):
+    """The data rows of points.csv's first `end` bytes (from scan_points), checked, one at a
+    time: memory stays constant however long the run."""
+    path = Path(run_dir) / POINTS_FILE
+    for n, line in _lines(path, end):
+        if n > 1:
+            yield _row(path, n, line)
+
+
+def scan_points(run_dir: str | os.PathLike, chain: bool = True) -> PointsScan:
+    """One pass over points.csv in constant memory: the header, every row's fields, and with
+    `chain` (and a points.chain beside it) every row against its digest."""
+    d = Path(run_dir)
+    path = d / POINTS_FILE
+    try:
+        n_lines, end = _complete_end(path)
+    except FileNotFoundError:
+        raise UserError(f"{path}: not found; is {run_dir} a run directory?") from None
+    except OSError as exc:
+        raise UserError(f"{path}: cannot read ({exc.strerror or exc}); the run directory is damaged") from None
+    for n, line in _lines(path, end):  # text first: an error names the first line not text
+        _parse_line(path, n, line)
+    header = next(_lines(path, end), None)
+    if header is None or tuple(_parse_line(path, 1, header[1])) != COLUMNS:
         raise UserError(f"{path}: header is not the benchkit points header; the file is damaged or not from benchkit")
-    rows = []
-    for n, fields in enumerate(lines[1:], start=2):
-        if len(fields) != len(COLUMNS):
-            raise UserError(f"{path}: line {n} has {len(fields)} fields, expected {len(COLUMNS)}; the file was edited or damaged")
-        for col, text in zip(COLUMNS, fields):
-            bad = control_char(text)
-            if bad is not None:
-                raise UserError(f"{path}: line {n}: column '{col}' holds the control character "
-                                f"{bad}; the file was edited or damaged")
-        rows.append(dict(zip(COLUMNS, fields)))
-    if chain and (Path(run_dir) / CHAIN_FILE).exists():
-        kept = check_chain(run_dir, data[:end])
-        if kept < len(lines):  # the last row's digest never reached the disk: the point in progress
-            rows = rows[: kept - 1]
-            end = _line_end(data, kept)
-    return rows, end
+    checker = _ChainCheck(d, n_lines) if chain and (d / CHAIN_FILE).exists() else None
+    kept = checker.kept if checker is not None else n_lines
+    n_rows, last, pos = 0, None, 0
+    try:
+        for n, line in _lines(path, end):
+            row = _row(path, n, line) if n > 1 else None
+            if checker is not None:
+                checker.check(n, line)
+            if n > kept:  # the last row's digest never reached the disk: the point in progress
+                break
+            pos += len(line)
+            if row is not None:
+                last, n_rows = row, n_rows + 1
+    finally:
+        if checker is not None:
+            checker.close()
+    return PointsScan(n_rows, pos, last, checker.prev if checker is not None else None)
 
 
-def _line_end(data: bytes, n_lines: int) -> int:
-    """Byte offset just after the first n_lines lines of data."""
-    pos = 0
-    for _ in range(n_lines):
-        pos = data.index(b"\n", pos) + 1
-    return pos
+class _ChainCheck:
+    """points.chain read alongside points.csv, one digest per line."""
+
+    def __init__(self, d: Path, n_lines: int):
+        self.path, self.cpath = d / POINTS_FILE, d / CHAIN_FILE
+        try:
+            size = self.cpath.stat().st_size
+            self._fh = open(self.cpath, "rb")
+        except OSError as exc:
+            raise UserError(f"{self.cpath}: cannot read ({exc.strerror or exc}); the run directory is damaged") from None
+        self.n_dig = size // _DIGEST_LINE
+        if not (n_lines - 1 <= self.n_dig <= n_lines + 1):
+            self._fh.close()
+            raise UserError(f"{self.path}: {n_lines} lines but {self.cpath.name} holds {self.n_dig} digests; "
+                            "lines were added or removed after they were written: restore the file")
+        self.kept = min(self.n_dig, n_lines)
+        self.prev = chain_start(str(read_run(d).get("run_id")))
+
+    def close(self) -> None:
+        self._fh.close()
+
+    def check(self, k: int, line: bytes) -> None:
+        if k > self.n_dig:
+            return
+        h = chain_next(self.prev, line)
+        if h.hex().encode("ascii") != self._fh.read(_DIGEST_LINE)[:64]:
+            raise UserError(f"{self.path}: line {k} differs from the line written during the run (its "
+                            f"digest in {self.cpath.name} does not match); the row was edited or damaged: "
+                            "restore the original file or measure again")
+        self.prev = h
+
+
+class StoredRows:
+    """The rows a run already holds, as a resume reads them: counted once, streamed from disk
+    on each pass (checked again each time), never all in memory at once."""
+
+    def __init__(self, run_dir: str | os.PathLike, scan: PointsScan):
+        self._dir, self._scan = Path(run_dir), scan
+
+    def __len__(self) -> int:
+        return self._scan.n_rows
+
+    def __iter__(self):
+        return iter_rows(self._dir, self._scan.end)
+
+    @property
+    def last(self) -> dict[str, str] | None:
+        return self._scan.last
 
 
 def chain_start(run_id: str) -> bytes:
@@ -187,32 +301,22 @@ def chain_next(prev: bytes, line: bytes) -> bytes:
     return hashlib.sha256(prev + line).digest()
 
 
-def check_chain(run_dir: str | os.PathLike, data: bytes) -> int:
-    """Check points.csv's complete lines (`data`) against points.chain; returns how many lines
-    carry a matching digest (all, or all but the last when the run stopped between writing a
-    row and its digest). UserError naming the first line whose digest differs."""
+def check_chain(run_dir: str | os.PathLike, end: int | None = None) -> int:
+    """Check points.csv's complete lines (up to byte `end`) against points.chain; returns how
+    many lines carry a matching digest (all, or all but the last when the run stopped between
+    writing a row and its digest). UserError naming the first line whose digest differs."""
     d = Path(run_dir)
-    path, cpath = d / POINTS_FILE, d / CHAIN_FILE
-    meta = read_run(d)
+    n_lines, full_end = _complete_end(d / POINTS_FILE)
+    end = full_end if end is None else end
+    if end < full_end:
+        n_lines = sum(1 for _ in _lines(d / POINTS_FILE, end))
+    checker = _ChainCheck(d, n_lines)
     try:
-        chain = cpath.read_bytes()
-    except OSError as exc:
-        raise UserError(f"{cpath}: cannot read ({exc.strerror or exc}); the run directory is damaged") from None
-    digests = chain[: len(chain) - len(chain) % _DIGEST_LINE]
-    n_dig = len(digests) // _DIGEST_LINE
-    lines = data.split(b"\n")[:-1]
-    if not (len(lines) - 1 <= n_dig <= len(lines) + 1):
-        raise UserError(f"{path}: {len(lines)} lines but {cpath.name} holds {n_dig} digests; "
-                        "lines were added or removed after they were written: restore the file")
-    h = chain_start(str(meta.get("run_id")))
-    for k, line in enumerate(lines[:n_dig], start=1):
-        h = chain_next(h, line + b"\n")
-        want = digests[(k - 1) * _DIGEST_LINE:(k - 1) * _DIGEST_LINE + 64]
-        if h.hex().encode("ascii") != want:
-            raise UserError(f"{path}: line {k} differs from the line written during the run (its "
-                            f"digest in {cpath.name} does not match); the row was edited or damaged: "
-                            "restore the original file or measure again")
-    return min(n_dig, len(lines))
+        for n, line in _lines(d / POINTS_FILE, end):
+            checker.check(n, line)
+    finally:
+        checker.close()
+    return checker.kept
 
 
 def read_run(run_dir: str | os.PathLike) -> dict:
@@ -234,7 +338,7 @@ def read_run(run_dir: str | os.PathLike) -> dict:
 class RunLog:
     """Owns one run directory while a sweep writes into it (an exclusive lock on points.csv)."""
 
-    def __init__(self, run_dir: Path, meta: dict, fh, rows: list[dict[str, str]], chain_fh=None,
+    def __init__(self, run_dir: Path, meta: dict, fh, rows, chain_fh=None,
                  chain_prev: bytes | None = None, lock=None):
         self.dir = run_dir
         self.meta = meta
@@ -242,7 +346,7 @@ class RunLog:
         self._lock_held = lock
         self._chain = chain_fh
         self._prev = chain_start(str(meta.get("run_id"))) if chain_prev is None else chain_prev
-        self.rows = rows  # rows already in points.csv before this session
+        self.rows = rows  # rows already in points.csv before this session (StoredRows on resume)
         self.flag_samples: dict[str, tuple[str, ...]] = {}  # flags every row of a sample carries
 
     # -- opening -------------------------------------------------------------
@@ -303,9 +407,8 @@ class RunLog:
             if meta.get("points_chain") != CHAIN_FILE or not cpath.exists():
                 raise UserError(f"{cpath}: missing; without its row digests the rows of this run "
                                 "cannot be checked, so it is not resumed: start a new run")
-            rows, end = read_points(d)
-            data = path.read_bytes()[:end]
-            n_lines = data.count(b"\n")
+            scan = scan_points(d)
+            end, n_lines = scan.end, scan.n_rows + 1
             chain_fh = open(cpath, "r+b")
         except BaseException:
             fh.close()
@@ -325,11 +428,8 @@ class RunLog:
             cls._unlock(lock, d)
             raise UserError(_write_problem(path, exc)) from None
         chain_fh.seek(0, os.SEEK_END)
-        prev = chain_start(str(meta.get("run_id")))
-        for line in data.split(b"\n")[:-1]:
-            prev = chain_next(prev, line + b"\n")
         fh.seek(0, os.SEEK_END)
-        return cls(d, meta, fh, rows, chain_fh, prev, lock=lock)
+        return cls(d, meta, fh, StoredRows(d, scan), chain_fh, scan.prev, lock=lock)
 
     @staticmethod
     def _lock(fh, d: Path):

@@ -67,6 +67,34 @@ def test_partial_trailing_line_is_dropped_on_reopen(tmp_path):
     assert [r["step_index"] for r in rows] == ["0", "1"]
 
 
+def test_reopen_streams_the_stored_rows_and_continues_their_chain(tmp_path):
+    # a resume must not hold a long run's rows in memory (issue: constant memory per point);
+    # the rows come back from disk on every pass, the same each time, and a row appended
+    # after the reopen extends the same hash chain (sha256 chain, hashlib as the reference)
+    d = tmp_path / "run"
+    log = RunLog.create(d, _meta())
+    for i in range(5):
+        log.append_point(_row(i))
+    log.close()
+    log = RunLog.reopen(d)
+    try:
+        assert not isinstance(log.rows, list) and len(log.rows) == 5
+        first, second = list(log.rows), list(log.rows)
+        assert first == second and [r["step_index"] for r in first] == [str(i) for i in range(5)]
+        assert log.rows.last == first[-1]
+        log.append_point(_row(5))
+    finally:
+        log.close()
+    h = hashlib.sha256(b"benchkit-points-chain\nrun-x").digest()
+    with open(d / "points.csv", "rb") as fh:
+        lines = fh.readlines()
+    digests = (d / "points.chain").read_text().split()
+    assert len(lines) == len(digests) == 7
+    for line, want in zip(lines, digests):
+        h = hashlib.sha256(h + line).digest()
+        assert h.hex() == want
+
+
 def test_status_complete_records_sha256(tmp_path):
     d = tmp_path / "run"
     log = RunLog.create(d, _meta())
