@@ -122,8 +122,13 @@ def first_visits(sweeps: list) -> list:
 
 def per_sample(sweeps: list) -> list:
     """One sweep per sample holding the points of all its visits (what run.json records)."""
-    return [replace(sw, points=tuple(p for w in sweeps if w.sample is sw.sample for p in w.points))
-            for sw in first_visits(sweeps)]
+    out = []
+    for sw in first_visits(sweeps):
+        visits = [w for w in sweeps if w.sample is sw.sample]
+        # one visit keeps its points as they are (made when asked for, never all in memory)
+        out.append(sw if len(visits) == 1 else
+                   replace(sw, points=tuple(p for w in visits for p in w.points)))
+    return out
 
 
 class TemperatureVisits:
