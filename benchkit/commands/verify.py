@@ -5,6 +5,7 @@ Exit code: 0 conforming, 1 nonconforming, 3 not decidable, 2 bad input (nothing 
 
 from __future__ import annotations
 
+import json
 import math
 
 from benchkit.errors import EXIT_FAILED, EXIT_OK, EXIT_UNDECIDED, UserError
@@ -111,6 +112,7 @@ def run(args) -> int:
     print(f"lot of {part_id}: {v.verdict} (rule: {args.rule}, k = {args.k:g}; {v.lot.rule})")
     print(f"report: {html_path}")
     print(f"        {json_path}")
+    print(f"report id: {json.loads(json_path.read_text(encoding='utf-8'))['identity']['report_id']}")
     return EXIT_BY_VERDICT.get(v.verdict, EXIT_UNDECIDED)
 
 

@@ -4,8 +4,9 @@ with which software and by whom, and an id derived from the content.
 Why: a report read months later, or a copy sent to a supplier, must say exactly what it
 judged. Each input file is named with its sha256; each run with its id and the *IDN? answers
 its instruments gave (recorded in run.json); the report id is a sha256 prefix over the input
-hashes, the software version, the operator and the results, so the same inputs judged the
-same way give the same id on any machine, and any changed byte gives another one. The
+hashes, the software version, the operator and the results (file paths left out), so the
+same inputs judged the same way keep their id wherever the files lie, and any changed byte of
+an input gives another one. The
 report's date is not part of the id: rendering twice is not a new result.
 """
 

@@ -137,6 +137,7 @@ def test_operator_from_the_option_or_run_json_else_not_recorded(tmp_path, lot_ru
                  "--operator", "A. Tester"]) == 0
     ident = json.loads((tmp_path / "r2" / "report.json").read_text())["identity"]
     assert (ident["operator"], ident["operator_source"]) == ("A. Tester", "given with --operator")
+    assert f"report id: {ident['report_id']}" in capsys.readouterr().out.splitlines()
     assert "A. Tester (given with --operator)" in visible_text((tmp_path / "r2" / "report.html").read_text())
     capsys.readouterr()
     # bad input: one line, exit 2, nothing written
