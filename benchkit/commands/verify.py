@@ -5,6 +5,7 @@ Exit code: 0 conforming, 1 nonconforming, 3 not decidable, 2 bad input (nothing 
 
 from __future__ import annotations
 
+import json
 import math
 
 from benchkit.errors import EXIT_FAILED, EXIT_OK, EXIT_UNDECIDED, UserError
@@ -58,6 +59,9 @@ def register(subparsers) -> None:
                    help="lot size, to judge the lot by ISO 2859-1 (2000, 10k)")
     p.add_argument("--aql", type=float, default=1.0, help="AQL in %% with --lot-size (default 1.0)")
     p.add_argument("--level", default="II", help="inspection level with --lot-size (default II)")
+    p.add_argument("--operator", metavar="NAME",
+                   help="who judged (shown in the report's identity block; default: the operator "
+                        "recorded in run.json, else 'not recorded')")
     p.add_argument("--json", action="store_true",
                    help="print the verification (the report's JSON document) on stdout")
     p.set_defaults(func=run)
@@ -67,6 +71,7 @@ def run(args) -> int:
     from benchkit.catalogue.codes import parse_tolerance
     from benchkit.verify import compare, measured
     from benchkit.verify.claims import load_claim
+    from benchkit.verify.identity import check_operator
     from benchkit.verify.report import write_report
     from benchkit.verify.sampling import plan_for_lot
 
@@ -78,6 +83,7 @@ def run(args) -> int:
         raise UserError("--measured-age-h must be a positive number of hours")
     if args.aging_k is not None and not (math.isfinite(args.aging_k) and args.aging_k >= 0):
         raise UserError("--aging-k must be a number >= 0 (percent per decade)")
+    operator = check_operator(getattr(args, "operator", None))
     claim = load_claim(args.claim)
     if args.tolerance is not None:
         tol = parse_tolerance(args.tolerance)
@@ -93,7 +99,7 @@ def run(args) -> int:
     v = compare.verify(claim, samples, skipped, tol, args.rule, args.k,
                        args.meter_accuracy_pct, args.aging_k, plan,
                        accept_other_conditions=args.accept_other_conditions)
-    html_path, json_path = write_report(v, args.out)
+    html_path, json_path = write_report(v, args.out, inputs=args.inputs, operator=operator)
     if args.json:
         print(json_path.read_text(encoding="utf-8"), end="")
         return EXIT_BY_VERDICT.get(v.verdict, EXIT_UNDECIDED)
@@ -106,28 +112,19 @@ def run(args) -> int:
     print(f"lot of {part_id}: {v.verdict} (rule: {args.rule}, k = {args.k:g}; {v.lot.rule})")
     print(f"report: {html_path}")
     print(f"        {json_path}")
+    print(f"report id: {json.loads(json_path.read_text(encoding='utf-8'))['identity']['report_id']}")
     return EXIT_BY_VERDICT.get(v.verdict, EXIT_UNDECIDED)
 
 
 def sample_details(s) -> list[str]:
     """Why a sample got its verdict, in plain words: its worst point, and what was not decidable."""
-    from benchkit.units import format_value
+    from benchkit.verify.margins import worst
 
     out = []
     decided = [p for p in s.points if p.measured_F is not None and p.budget is not None]
-    if decided:
-        def margin_pct(p):  # distance inside the nearer tolerance limit, % of the claimed value
-            d = p.decision
-            return 100.0 * min(p.measured_F - d.tol_lo, d.tol_hi - p.measured_F) / p.claimed_F
-
-        w = min(decided, key=margin_pct)
-        m = margin_pct(w)
-        where = "inside" if m >= 0 else "outside"
-        dev = 100.0 * (w.measured_F / w.claimed_F - 1.0)
-        out.append(f"worst point {w.bias_V:g} V: measured {format_value(w.measured_F, 'F')}, "
-                   f"claim {format_value(w.claimed_F, 'F')} ({dev:+.1f} %); "
-                   f"{abs(m):.1f} % of the claim {where} the tolerance limit, "
-                   f"U = {100.0 * w.decision.U / w.claimed_F:.2f} % (k = {w.budget.k:g})")
+    w = worst(decided)
+    if w is not None:
+        out.append(f"worst point {w.text()}")
     outside = [p for p in s.points if p.measured_F is None]
     if outside:
         lo, hi = s.sample.curve.valid_range_V

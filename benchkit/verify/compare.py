@@ -33,11 +33,13 @@ from benchkit.verify.uncertainty import DEFAULT_METER_ACCURACY_PCT, Budget, Comp
 
 # Measurement conditions agree with the claim's when within these tolerances
 # [standard: IEC 60384-1 4.2.2 as quoted in detail specifications: frequency +-10 %,
-# AC level +-0.2 Vrms at 1.0 Vrms (+-20 %)]; temperature within +-2 degC of the claim
-# (our choice, stated in the report).
+# AC level +-0.2 Vrms at 1.0 Vrms (+-20 %); from memory of those quotes, which differ slightly
+# between sources]; temperature within +-2 degC of the claim (our choice, stated in the report).
 FREQ_REL_TOL = 0.10
 AC_LEVEL_REL_TOL = 0.20
 TEMP_TOL_C = 2.0
+AC_LEVEL_TOL_SOURCE = ("measuring-voltage tolerance of IEC 60384-1 clause 4.2.2 as quoted in "
+                       "detail specifications (1.0 +-0.2 Vrms), from memory")
 
 
 @dataclass
@@ -64,6 +66,7 @@ class SampleResult:
     sample: MeasuredSample
     points: list[PointResult]
     flags: list[str]
+    ac_level: dict = field(default_factory=dict)  # ac_level_check(): across the part vs the claim
 
     @property
     def verdict(self) -> str:
@@ -78,6 +81,7 @@ class SampleResult:
                           "valid_range_V": list(curve.valid_range_V),
                           "stats": dict(getattr(curve, "stats", {}) or {})},
                 "conditions": _clean(dict(s.conditions)), "flags": list(self.flags),
+                "ac_level_check": _clean(dict(self.ac_level)),
                 "verdict": self.verdict, "points": [p.to_dict() for p in self.points]}
 
 
@@ -173,6 +177,46 @@ def condition_flags(claim: Claim, conds: dict) -> list[str]:
     return flags
 
 
+def ac_level_check(claim: Claim, conds: dict) -> dict:
+    """The level across the part (lowest..highest over the points used, and their mean) beside
+    the claim's AC level, and whether any of it lies outside the measuring-voltage tolerance.
+
+    Why: the meter sets its source level, but a capacitor of low impedance takes only part of
+    it (the source resistance divides it), and class-2 capacitance rises with the AC level
+    (science notes: Rayleigh behaviour), so a reader must see both levels side by side."""
+    claim_V = float(claim.ac_level_Vrms)
+    mean = conds.get("ac_level_Vrms")
+    lo = conds.get("ac_level_dut_min_Vrms", mean)
+    hi = conds.get("ac_level_dut_max_Vrms", mean)
+    tol_V = AC_LEVEL_REL_TOL * claim_V
+    out = {"claim_Vrms": claim_V, "tolerance_Vrms": tol_V, "tolerance_source": AC_LEVEL_TOL_SOURCE,
+           "min_Vrms": lo, "max_Vrms": hi, "mean_Vrms": mean,
+           "set_Vrms": conds.get("ac_level_set_Vrms"), "source": conds.get("ac_level_source"),
+           "within_tolerance": None}
+    if mean is None:
+        out["text"] = "AC level of the measurement not recorded: not compared with the claim's"
+        return out
+    lo = mean if lo is None else lo
+    hi = mean if hi is None else hi
+    within = all(abs(x - claim_V) <= tol_V for x in (lo, hi, mean))
+    out.update(min_Vrms=lo, max_Vrms=hi, within_tolerance=within)
+    span = f"{lo:.3g} Vrms" if abs(hi - lo) < 5e-4 * claim_V else f"{lo:.3g}\u2013{hi:.3g} Vrms"
+    rel = 100.0 * (mean / claim_V - 1.0)
+    side = "below" if rel < 0 else "above"
+    source = conds.get("ac_level_source") or "source not stated"
+    where = ("across the part" if source.startswith("level across the part")
+             else f"({source})")
+    text = (f"{span} {where} (mean {mean:.3g} Vrms, {abs(rel):.1f} % {side} the claim's "
+            f"{claim_V:g} Vrms)")
+    if within:
+        text += f"; within the tolerance of \u00b1{tol_V:.2g} Vrms"
+    else:
+        text += (f"; NOTE: beyond the tolerance of \u00b1{tol_V:.2g} Vrms, so the samples were not "
+                 f"measured at the claim's level and class-2 capacitance depends on it")
+    out["text"] = text
+    return out
+
+
 def condition_mismatches(claim: Claim, conds: dict) -> list[str]:
     """The conditions (frequency, AC level, temperature) at which the claim and the
     measurement differ beyond the tolerances above. A claim at other conditions says nothing
@@ -265,7 +309,7 @@ def verify(claim: Claim, samples: list[MeasuredSample], skipped: list[Skipped],
             for j, p in enumerate(pts):
                 p.decision = decide(math.nan, math.nan, float(lo_all[j]), float(hi_all[j]), rule)
                 p.note = "; ".join(filter(None, [p.note, "conditions differ from the claim's"]))
-        results.append(SampleResult(s, pts, flags))
+        results.append(SampleResult(s, pts, flags, ac_level_check(claim, s.conditions)))
     lv = lot_verdict([r.verdict for r in results], plan)
     notes = []
     if any(p.decision.verdict == NOT_DECIDABLE and p.measured_F is None

@@ -62,6 +62,7 @@ class MeasuredSample:
     run_id: str | None = None
     branch: str | None = None
     fit_report: str = ""
+    path: str | None = None  # the run directory or curve document it came from (report identity)
 
     def residual_u_F(self) -> float:
         """Standard deviation of the points about the fitted curve (noise plus lack of fit)."""
@@ -142,9 +143,19 @@ def _age_from(*dicts) -> float | None:
     return None
 
 
+def _finite(values) -> np.ndarray:
+    return np.asarray([v for v in values if math.isfinite(v)], dtype=float)
+
+
 def _mean(values) -> float | None:
-    a = np.asarray([v for v in values if math.isfinite(v)], dtype=float)
+    a = _finite(values)
     return float(a.mean()) if a.size else None
+
+
+def _span(values) -> tuple[float | None, float | None]:
+    """Lowest and highest finite value (the level across the part over a sweep)."""
+    a = _finite(values)
+    return (float(a.min()), float(a.max())) if a.size else (None, None)
 
 
 def _at_temperature(smp, temp_C: float | None):
@@ -197,6 +208,8 @@ def _from_run(run_dir: Path, part_id: str, branch: str, model: str, temp_C: floa
             "age_h": _age_from(smeta, meta.get("conditions")),
             "function": fitted["function"] or sconds.get("function"),
         }
+        conds["ac_level_dut_min_Vrms"], conds["ac_level_dut_max_Vrms"] = _span(
+            rundir.column(use.rows, "ac_level_dut_Vrms"))
         if conds["ac_level_Vrms"] is None:
             conds["ac_level_Vrms"] = conds["ac_level_set_Vrms"]
             conds["ac_level_source"] = "set level (no level across the part recorded)"
@@ -219,7 +232,7 @@ def _from_run(run_dir: Path, part_id: str, branch: str, model: str, temp_C: floa
         curve = outcome.curve
         samples.append(MeasuredSample(sid, pid, origin, curve, conds, pts,
                                       dict(smeta.get("part") or {}), meta.get("run_id"),
-                                      used_branch, getattr(outcome, "report", "")))
+                                      used_branch, getattr(outcome, "report", ""), str(run_dir)))
     return samples, skipped
 
 
@@ -247,4 +260,4 @@ def _from_curve(path: Path, part_id: str):
              "ac_level_source": "curve document", "age_source": "curve document"
              if _age_from(c) is not None else "not recorded"}
     return [MeasuredSample(sid, pid, origin, curve, conds, None, {}, src.get("run_id"),
-                           src.get("branch"))], []
+                           src.get("branch"), path=str(path))], []

@@ -17,6 +17,9 @@ from pathlib import Path
 import numpy as np
 
 from benchkit.atomic import write_text_atomic
+from benchkit.units import format_value
+from benchkit.verify import identity, margins
+from benchkit.verify.compare import AC_LEVEL_REL_TOL, AC_LEVEL_TOL_SOURCE
 from benchkit.verify.decision import RULE_TEXT
 
 CAUTION = ("This report judges the samples measured against the claim under the stated rule; "
@@ -46,7 +49,45 @@ def _png(fig) -> str:
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
-def plot_curves(v) -> str:
+# Engineering notation on the page, through the project's one formatter (benchkit.units).
+MICRO = "\u00b5"
+DASH = "\u2013"
+
+
+def cap(x, digits: int = 4) -> str:
+    """A capacitance for the page: 404.5 nF, 27 µF; a dash when there is none."""
+    if x is None or not math.isfinite(float(x)):
+        return DASH
+    return format_value(float(x), "F", digits=digits, micro=MICRO)
+
+
+def pct(x, signed: bool = False, decimals: int = 2) -> str:
+    """A ratio already in percent: 1.07 %, +1.07 %."""
+    if x is None or not math.isfinite(float(x)):
+        return DASH
+    return f"{float(x):{'+' if signed else ''}.{decimals}f} %"
+
+
+def volts(x, unit: str = "V") -> str:
+    """A bias or level as the claim and plan write it: 12.5 V, 12.25 V, 1 Vrms (4 digits at most)."""
+    if x is None or not math.isfinite(float(x)):
+        return DASH
+    return f"{float(x):.4g} {unit}"
+
+
+def freq(x) -> str:
+    if x is None or not math.isfinite(float(x)):
+        return "not stated"
+    return format_value(float(x), "Hz", micro=MICRO)
+
+
+def _condition_text(claim) -> str:
+    return ", ".join(x for x in (freq(claim.freq_Hz) if claim.freq_Hz else "",
+                                 volts(claim.ac_level_Vrms, "Vrms") if claim.ac_level_Vrms else "",
+                                 f"{claim.temp_C:g} \u00b0C" if claim.temp_C is not None else "") if x)
+
+
+def curves_figure(v):
     """The claim with its band, every measured curve, the decided points with their U."""
     fig, ax = _figure((7.5, 4.6))
     claim = v.claim
@@ -69,30 +110,42 @@ def plot_curves(v) -> str:
         es = [p.budget.U * 1e6 for p in s.points if p.measured_F is not None]
         ax.errorbar(xs, ys, yerr=es, fmt="o", ms=3, color=col, capsize=2)
     ax.set_xlabel("DC bias (V)")
-    ax.set_ylabel("capacitance (\u00b5F)")
-    cond = ", ".join(x for x in (f"{claim.freq_Hz:g} Hz" if claim.freq_Hz else "",
-                                 f"{claim.ac_level_Vrms:g} Vrms" if claim.ac_level_Vrms else "",
-                                 f"{claim.temp_C:g} \u00b0C" if claim.temp_C is not None else "") if x)
+    ax.set_ylabel(f"capacitance ({MICRO}F)")
+    cond = _condition_text(claim)
     ax.set_title(f"{claim.part_id}: claimed and measured C(V)" + (f" \u2014 claim at {cond}" if cond else ""),
                  fontsize=10)
     ax.ticklabel_format(axis="both", style="plain", useOffset=False)
     ax.grid(True, alpha=0.3)
     ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))  # beside the data, not on it
-    return _png(fig)
+    return fig
 
 
-def plot_deviations(v) -> str:
-    """Deviation from the claim per claimed bias, with U, the tolerance and acceptance limits."""
+# An acceptance limit closer to its tolerance line than this share of the plot's height would
+# sit on the line and read as one mark; it is then left out of the plot (the tables give it).
+AL_DISTINCT_FRACTION = 0.02
+
+
+def deviations_figure(v):
+    """Deviation from the claim per claimed bias, with U, the tolerance limits and, where they
+    can be told apart from those, the acceptance limits as inward-pointing triangles."""
     fig, ax = _figure((7.5, 4.0))
     claim = v.claim
     bias = claim.bias_V
     c = np.atleast_1d(claim.C(bias))
     lo, hi = claim.limits(bias, v.tolerance)
-    ax.plot(bias, (hi / c - 1) * 100, "k-", lw=1, label="tolerance limits")
-    ax.plot(bias, (lo / c - 1) * 100, "k-", lw=1)
+    tol_hi, tol_lo = (hi / c - 1) * 100, (lo / c - 1) * 100
+    ax.plot(bias, tol_hi, "k-", lw=1, label="tolerance limits")
+    ax.plot(bias, tol_lo, "k-", lw=1)
     width = 0.6 * (np.min(np.diff(bias)) if bias.size > 1 else 1.0)
     n = max(len(v.samples), 1)
     colours = _colours()
+    decided = [(s, p) for s in v.samples for p in s.points if p.measured_F is not None]
+    ys = [float(x) for x in np.concatenate([tol_hi, tol_lo])]
+    for _, p in decided:
+        d, e = (p.measured_F / p.claimed_F - 1) * 100, p.budget.U / p.claimed_F * 100
+        ys += [d - e, d + e]
+    span = (max(ys) - min(ys)) or 1.0
+    al_drawn = al_hidden = 0
     for i, s in enumerate(v.samples):
         col = colours[i % len(colours)]
         off = (i - (n - 1) / 2) * width / n
@@ -102,22 +155,39 @@ def plot_deviations(v) -> str:
             d = (p.measured_F / p.claimed_F - 1) * 100
             e = p.budget.U / p.claimed_F * 100
             ax.errorbar(p.bias_V + off, d, yerr=e, fmt="o", ms=3, color=col, capsize=2)
-            if v.rule == "guarded":
-                ax.plot([p.bias_V + off] * 2,
-                        [(p.decision.accept_lo / p.claimed_F - 1) * 100,
-                         (p.decision.accept_hi / p.claimed_F - 1) * 100], "_", color="0.4", ms=6)
+            dec = p.decision
+            for al, tl, marker in ((dec.accept_lo, dec.tol_lo, "^"), (dec.accept_hi, dec.tol_hi, "v")):
+                gap = abs(al - tl) / p.claimed_F * 100
+                if gap == 0.0:
+                    continue  # simple acceptance, or U = 0: the acceptance limit is the line
+                if gap < AL_DISTINCT_FRACTION * span:
+                    al_hidden += 1
+                    continue
+                ax.plot(p.bias_V + off, (al / p.claimed_F - 1) * 100, marker, color="0.35", ms=5,
+                        mfc="none", label="acceptance limits (TL moved in by U)" if not al_drawn else None)
+                al_drawn += 1
         ax.plot([], [], "o", color=col, label=s.sample.sample_id)
     ax.axhline(0, color="0.5", lw=0.8)
     ax.set_xlabel("DC bias (V)")
-    ax.set_ylabel("measured - claimed (% of claim)")
+    ax.set_ylabel("measured \u2212 claimed (% of claim)")
     title = "deviation per claimed bias, error bars = U"
-    if v.rule == "guarded":
-        title += "; grey ticks = acceptance limits"
-    ax.set_title(title, fontsize=10)
+    if al_hidden:
+        title += (f"\n{al_hidden} acceptance limit(s) within {AL_DISTINCT_FRACTION * span:.2g} % of "
+                  "the tolerance lines not drawn: see the tables")
+    ax.set_title(title, fontsize=9)
     ax.ticklabel_format(axis="both", style="plain", useOffset=False)
     ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
-    return _png(fig)
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))  # beside the data, not on it
+    fig.al_drawn, fig.al_hidden = al_drawn, al_hidden  # what was drawn, for the page and tests
+    return fig
+
+
+def plot_curves(v) -> str:
+    return _png(curves_figure(v))
+
+
+def plot_deviations(v) -> str:
+    return _png(deviations_figure(v))
 
 
 def _components(p) -> dict:
@@ -128,15 +198,32 @@ def _components(p) -> dict:
 def render_html(v, doc: dict) -> str:
     from benchkit.web.templating import render
 
+    worst = {s.sample.sample_id: margins.worst(s.points) for s in v.samples}
+    ranked = [(sid, m) for sid, m in worst.items() if m is not None]
+    lot_worst = min(ranked, key=lambda x: x[1].margin_pct) if ranked else None
     return render("report.html", v=v, doc=doc, rule_text=RULE_TEXT[v.rule], caution=CAUTION,
                   plots={"curves": plot_curves(v), "deviations": plot_deviations(v)},
-                  components=_components)
+                  components=_components, cap=cap, pct=pct, volts=volts, freq=freq,
+                  worst=worst, lot_worst=lot_worst, micro=MICRO,
+                  ac_tol_Vrms=AC_LEVEL_REL_TOL * float(v.claim.ac_level_Vrms),
+                  ac_tol_source=AC_LEVEL_TOL_SOURCE)
 
 
-def write_report(v, out_dir) -> tuple[Path, Path]:
-    """Render both files first, then write each atomically (JSON last: it marks completion)."""
-    doc = _json_safe(v.to_dict())
-    doc["caution"] = CAUTION
+def report_document(v, inputs=None, operator: str | None = None, now=None) -> dict:
+    """The JSON document: the identity block first, then the verification and its margins."""
+    results = _json_safe(v.to_dict())
+    for s, entry in zip(v.samples, results["samples"]):
+        m = margins.worst(s.points)
+        entry["worst_margin"] = None if m is None else {**_json_safe(m.to_dict()), "text": m.text(MICRO)}
+    results["caution"] = CAUTION
+    ident = identity.finish(identity.gather(v, inputs, operator), results, now)
+    return {"identity": ident, **results}
+
+
+def write_report(v, out_dir, inputs=None, operator: str | None = None, now=None) -> tuple[Path, Path]:
+    """Render both files first, then write each atomically (JSON last: it marks completion).
+    `inputs` are the run directories and curve documents given (hashed into the identity)."""
+    doc = report_document(v, inputs, operator, now)
     text_json = json.dumps(doc, indent=2, allow_nan=False, default=_json_default)
     text_html = render_html(v, doc)
     out = Path(out_dir)
