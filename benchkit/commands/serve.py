@@ -1,7 +1,7 @@
 """`benchkit serve`: the library's web page (rank, part, compare, downloads) over HTTP.
 
-Loopback and read-only by default. Benches may file parts and curves (POST /api/parts,
-/api/curves) only when the server is given a write token (from a file or
+Loopback and read-only by default. Benches may file parts, curves and whole runs (POST
+/api/parts, /api/curves, /api/runs; `benchkit library add RUN_DIR --library http://...`) only when the server is given a write token (from a file or
 $BENCHKIT_SERVE_TOKEN, never on the command line, where other users could read it), and
 every write must carry it. Without a token there is no write route at all, on any address.
 """
