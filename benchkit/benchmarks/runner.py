@@ -74,7 +74,8 @@ def _library(out_dir, quick, parts, log):
     for name in res["backends"]:
         r = res[name]
         log(f"library query over {n} curves on {name}: {r['query_warm_s'] * 1e3:.1f} ms warm, "
-            f"{r['query_cold_s'] * 1e3:.1f} ms cold (build {r['build_s']:.1f} s)")
+            f"{r['query_cold_s'] * 1e3:.1f} ms cold, open included (build {r['build_s']:.1f} s)")
+    log(f"cold = {res['cold_means']}")
     log(f"per-curve loop {res.get('loop_s', float('nan')):.2f} s")
     return dict(res, what="vectorised library query against a per-curve Python loop "
                           "(benchkit.library.benchmark_query)")

@@ -127,6 +127,9 @@ def format_table(results: dict) -> str:
                 r = lq[name]
                 lines.append(f"  {name:10} {r['query_warm_s'] * 1e3:7.1f} ms warm {r['query_cold_s'] * 1e3:7.1f} ms "
                              f"cold (worst of 3 fresh opens); build {r['build_s']:.1f} s")
+            if lq.get("cold_means"):
+                lines.append(f"  cold: {lq['cold_means']}")
+                lines.append(f"  warm: {lq['warm_means']}")
             if "postgresql" not in lq.get("backends", []):
                 lines.append("  postgresql not measured (BENCHKIT_BENCH_POSTGRES not set)")
             lines.append(f"  per-curve loop {lq['loop_s']:.2f} s ({lq['loop_over_query']:.0f}x the warm "

@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import argparse
 import json
-from contextlib import contextmanager
+import os
 import sys
+from contextlib import contextmanager
 from pathlib import Path
 
 from benchkit.bounded import MAX_DEPTH, check_text, data_depth
@@ -74,6 +75,9 @@ def register(subparsers) -> None:
                     help="series resistance to store with a curve document (a run's own Rs/D is used otherwise)")
     sp.add_argument("--allow-incomplete", action="store_true",
                     help="also add a run whose run.json still says 'running'")
+    sp.add_argument("--token-file", metavar="FILE",
+                    help="with --library http://HOST:PORT (a 'benchkit serve' with a write token): the "
+                         "token, read from FILE (or $BENCHKIT_SERVE_TOKEN), never given on the command line")
     sp.set_defaults(func=run, action=_add)
 
     sp = add("list", "list the parts and how many curves each has")
@@ -158,11 +162,49 @@ def _no_action(args) -> int:
     return 2
 
 
+def _remote_target(args) -> str | None:
+    """The http(s):// URL of a `benchkit serve` when --library (or $BENCHKIT_LIBRARY) names one."""
+    from benchkit.library.filing import is_http_url
+
+    target = args.library if args.library is not None else os.environ.get("BENCHKIT_LIBRARY")
+    return target if is_http_url(target) else None
+
+
+def _add_remote(args, src: Path) -> int:
+    """`library add RUN_DIR --library http://HOST:PORT`: the run filed through a server's write API."""
+    from benchkit.commands.serve import TOKEN_ENV, read_token_file
+    from benchkit.library.filing import file_run
+
+    url = _remote_target(args)
+    token = read_token_file(args.token_file, "--token-file") if args.token_file else os.environ.get(TOKEN_ENV)
+    if not token:
+        raise UserError(f"{url}: filing over HTTP needs the server's write token; give --token-file FILE "
+                        f"or set ${TOKEN_ENV}")
+    answer = file_run(url, token, src, part_id=args.part, all_parts=args.all_parts, model=args.model,
+                      allow_incomplete=args.allow_incomplete)
+    for run in answer["runs"]:
+        if run["already_present"]:
+            print(f"{src}: run (points sha256 {run['points_sha256'][:12]}) of part {run['part_id']} is already "
+                  f"in {answer['library']}; nothing added")
+            continue
+        for c in run["curves"]:
+            state = "added" if c["added"] else "already present"
+            print(f"curve {c['id']} ({state}): part {run['part_id']}, sample {c['sample_id']}, "
+                  f"{c['branch']}, model {c['model']}, {c['n_points']} points")
+        print(f"{answer['library']}: {sum(c['added'] for c in run['curves'])} curves of part {run['part_id']} "
+              f"added from {src} (over HTTP)")
+    return 0
+
+
 @contextmanager
 def _open(args, create: bool):
     """The library, closed after use; a file this command created is removed again if it fails."""
     from benchkit.library import Library
 
+    remote = _remote_target(args)
+    if remote is not None:
+        raise UserError(f"{remote}: a web server takes runs only ('library add RUN_DIR'); give the library's "
+                        f"file or postgresql:// URL for this action")
     lib = Library(args.library, create=create)
     try:
         yield lib
@@ -197,29 +239,24 @@ def _add_parts(args) -> int:
 
 def _add(args) -> int:
     src = Path(args.source)
+    remote = _remote_target(args) is not None
     if not src.exists():
         raise UserError(f"{src}: no such run directory or curve file")
+    if remote and not src.is_dir():
+        raise UserError(f"{src}: over HTTP a library takes run directories; file curve documents, claims and "
+                        f"reports with the library's file or postgresql:// URL")
     if src.is_dir():
         if args.esr is not None:
             raise UserError("--esr is for curve documents; a run's own Rs/D readings give its ESR")
         if args.all_parts and args.part:
             raise UserError("give --part ID or --all-parts, not both")
+        if remote:
+            return _add_remote(args, src)
+        from benchkit.library.ingest import add_run_parts
+
         with _open(args, create=True) as lib:
-            if args.all_parts:
-                from benchkit.library.ingest import parts_in_run
-
-                from benchkit.sweep import runlog
-                from benchkit.library.ingest import run_catalogue
-
-                part_ids = parts_in_run(src)
-                meta = runlog.read_run(src)
-                missing = [p for p in part_ids if not lib.has_part(p) and run_catalogue(meta, p) is None]
-                if missing:
-                    lib.part(missing[0])  # the one-line "not in the library" error, before any fit
-            else:
-                part_ids = [args.part]
-            for part_id in part_ids:
-                s = lib.add_run(src, part_id, model=args.model, allow_incomplete=args.allow_incomplete)
+            for s in add_run_parts(lib, src, args.part, all_parts=args.all_parts, model=args.model,
+                                   allow_incomplete=args.allow_incomplete):
                 if s.already_present:
                     print(f"{src}: run (points sha256 {s.points_sha256[:12]}) of part {s.part_id} is already "
                           f"in {lib.where}; nothing added")

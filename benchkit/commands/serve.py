@@ -1,7 +1,7 @@
 """`benchkit serve`: the library's web page (rank, part, compare, downloads) over HTTP.
 
-Loopback and read-only by default. Benches may file parts and curves (POST /api/parts,
-/api/curves) only when the server is given a write token (from a file or
+Loopback and read-only by default. Benches may file parts, curves and whole runs (POST
+/api/parts, /api/curves, /api/runs; `benchkit library add RUN_DIR --library http://...`) only when the server is given a write token (from a file or
 $BENCHKIT_SERVE_TOKEN, never on the command line, where other users could read it), and
 every write must carry it. Without a token there is no write route at all, on any address.
 """
@@ -35,15 +35,20 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
+def read_token_file(path: str, option: str) -> str:
+    """A token from its file (one line; surrounding blanks dropped)."""
+    try:
+        token = Path(path).read_text(encoding="utf-8").strip()
+    except (OSError, UnicodeDecodeError) as exc:
+        raise UserError(f"{option} {path}: unreadable ({getattr(exc, 'strerror', None) or exc})") from None
+    if not token:
+        raise UserError(f"{option} {path}: the file is empty")
+    return token
+
+
 def read_token(args) -> str | None:
     if args.write_token_file:
-        try:
-            token = Path(args.write_token_file).read_text(encoding="utf-8").strip()
-        except OSError as exc:
-            raise UserError(f"--write-token-file {args.write_token_file}: unreadable ({exc.strerror})") from None
-        if not token:
-            raise UserError(f"--write-token-file {args.write_token_file}: the file is empty")
-        return token
+        return read_token_file(args.write_token_file, "--write-token-file")
     return os.environ.get(TOKEN_ENV) or None
 
 

@@ -17,6 +17,11 @@ import numpy as np
 from benchkit.library.store import Library
 
 TEMPS_C = (-55.0, 25.0, 85.0, 125.0)
+COLD_MEANS = ("a new Library object opened on a new connection (SQLite file opened anew, PostgreSQL "
+              "connection made anew; its open is inside the time) and its first query: parts and packed "
+              "arrays read from the store and evaluated, nothing cached in the process; worst of 3; "
+              "the OS file cache and the server's buffers as the build left them")
+WARM_MEANS = "the same query again on that Library (arrays cached in the object, evaluated anew); best of 9"
 
 
 def synthetic_documents(n_curves: int, seed: int = 0) -> tuple[list[dict], list[dict]]:
@@ -64,9 +69,8 @@ def benchmark_query(n_curves: int = 100_000, *, bias_V: float = 5.0, temp_C: flo
 
     On SQLite (a temporary file) and, when postgres_url is given, on that PostgreSQL database
     too (its tables are dropped and built anew: give a throwaway database). Returns per backend
-    build_s, query_cold_s (first query of a freshly opened Library: the packed arrays are read
-    from the store, then evaluated; imports done beforehand), query_warm_s (cached arrays,
-    best of 3); then loop_s (one Curve.C(bias) call per curve inside its valid range) and
+    build_s, query_cold_s (COLD_MEANS; imports done beforehand), open_s (the open alone, worst
+    of 3), query_warm_s (WARM_MEANS); then loop_s (one Curve.C(bias) call per curve inside its valid range) and
     loop_over_query (loop_s / the SQLite warm query), and the sizes. Top-level query_cold_s
     and query_warm_s are the slowest backend's.
     """
@@ -76,7 +80,8 @@ def benchmark_query(n_curves: int = 100_000, *, bias_V: float = 5.0, temp_C: flo
     model_spec("tanh")  # imports fits (numpy/scipy) before any clock starts
     model_spec("landau")
     parts, docs = synthetic_documents(n_curves, seed)
-    out: dict = {"n_curves": n_curves, "n_parts": len(parts), "bias_V": bias_V, "temp_C": temp_C}
+    out: dict = {"n_curves": n_curves, "n_parts": len(parts), "bias_V": bias_V, "temp_C": temp_C,
+                 "cold_means": COLD_MEANS, "warm_means": WARM_MEANS}
     with tempfile.TemporaryDirectory(dir=folder) as tmp:
         targets = {"sqlite": str(Path(tmp) / "bench.sqlite")}
         if postgres_url:
@@ -89,18 +94,21 @@ def benchmark_query(n_curves: int = 100_000, *, bias_V: float = 5.0, temp_C: flo
                 lib.add_parts(parts)
                 lib._insert_trusted(docs)  # invented, self-generated documents: no per-curve validation
                 build_s = time.perf_counter() - t0
-            colds, warms = [], []
+            colds, opens, warms = [], [], []
             for _ in range(3):  # three fresh opens: the cold figure is the worst of them
+                t0 = time.perf_counter()
                 with Library(target, create=False) as lib:
-                    t0 = time.perf_counter()
+                    t1 = time.perf_counter()
                     results = lib.query(bias_V, temp_C)
                     colds.append(time.perf_counter() - t0)
+                    opens.append(t1 - t0)
                     for _ in range(3):
                         t0 = time.perf_counter()
                         lib.query(bias_V, temp_C)
                         warms.append(time.perf_counter() - t0)
             answers[name] = [(r.part_id, r.C_F) for r in results]
-            out[name] = {"build_s": build_s, "query_cold_s": max(colds), "query_warm_s": min(warms),
+            out[name] = {"build_s": build_s, "query_cold_s": max(colds), "open_s": max(opens),
+                         "query_warm_s": min(warms),
                          "covered_parts": sum(1 for r in results if r.covered)}
         if postgres_url:
             _empty_postgres(postgres_url)

@@ -102,8 +102,31 @@ def _attach_wideband(curves: dict, run_dir: Path, sample_id: str, where: str) ->
         curves[primary].wideband = wb
 
 
+def add_run_parts(lib: Library, run_dir: Path, part_id: str | None = None, *, all_parts: bool = False,
+                  model: str = "auto", allow_incomplete: bool = False,
+                  record_path: bool = True) -> list[AddRunSummary]:
+    """`benchkit library add RUN_DIR [--part ID | --all-parts]`: one summary per part filed.
+
+    Every part of an --all-parts filing must be in the library or in the run's own catalogue
+    copy, checked before any fit. record_path False stores no path with the run (a run filed
+    over HTTP was never on this machine).
+    """
+    if all_parts and part_id:
+        raise UserError("give --part ID or --all-parts, not both")
+    if all_parts:
+        part_ids = parts_in_run(run_dir)
+        meta = runlog.read_run(run_dir)
+        missing = [p for p in part_ids if not lib.has_part(p) and run_catalogue(meta, p) is None]
+        if missing:
+            lib.part(missing[0])  # the one-line "not in the library" error, before any fit
+    else:
+        part_ids = [part_id]
+    return [add_run_dir(lib, run_dir, p, model=model, allow_incomplete=allow_incomplete, record_path=record_path)
+            for p in part_ids]
+
+
 def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str = "auto",
-                allow_incomplete: bool = False) -> AddRunSummary:
+                allow_incomplete: bool = False, record_path: bool = True) -> AddRunSummary:
     meta = runlog.read_run(run_dir)
     status = meta.get("status")
     if status == "running" and not allow_incomplete:
@@ -148,7 +171,7 @@ def add_run_dir(lib: Library, run_dir: Path, part_id: str | None, *, model: str 
             for branch, curve in outcome.curves.items():
                 brows = group.select(branch).rows
                 summary.curves.append(FittedCurve(sample_id, branch, curve, esr_estimate(brows), len(brows)))
-    run = RunInfo(sha, meta.get("run_id"), str(Path(run_dir).resolve()), status, meta)
+    run = RunInfo(sha, meta.get("run_id"), str(Path(run_dir).resolve()) if record_path else None, status, meta)
     ids = lib.add_curves([(fc.curve, fc.esr_ohm) for fc in summary.curves], part_id=part_id, run=run,
                          where=str(run_dir), new_parts=new_parts)
     for fc, (cid, added) in zip(summary.curves, ids):

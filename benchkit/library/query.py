@@ -127,11 +127,13 @@ def run_query(lib, bias_V: float, temp_C: float = 25.0, *, min_C_F: float | None
     # never extrapolated; the edge tolerance is fits.Curve's own (1e-9 of the range's size)
     edge = 1e-9 * np.maximum(1.0, np.maximum(np.abs(t.lo_V), np.abs(t.hi_V)))
     inside = (t.lo_V - edge <= V) & (V <= t.hi_V + edge)
-    C, u = t.evaluate(V, (at | near_lo | near_hi) & inside)  # only the curves that may answer
+    n_at = np.bincount(key[at], minlength=K)
+    # only the curves that may answer: those at the temperature, and the nearest below and
+    # above it only for a part (and origin) with none at the temperature
+    C, u = t.evaluate(V, (at | ((near_lo | near_hi) & (n_at[key] == 0))) & inside)
     reach = ok & inside & np.isfinite(C)
 
     # 1) curves at the asked temperature
-    n_at = np.bincount(key[at], minlength=K)
     p_at = _pool(key, at & reach, C, u, t.temp_C, K)
     # 2) else the nearest temperatures below and above, interpolated
     p_lo = _pool(key, near_lo & reach, C, u, t.temp_C, K)
@@ -172,7 +174,6 @@ def run_query(lib, bias_V: float, temp_C: float = 25.0, *, min_C_F: float | None
     starts = np.searchsorted(used_keys, chosen).tolist()
     ends = np.searchsorted(used_keys, chosen + 1).tolist()
     used_ids = t.curve_id[used_rows].tolist()
-    cov_l = covered[chosen].tolist()
     at_l = covered_at[chosen].tolist()
     C_l = C_key[chosen].tolist()
     u_l = u_key[chosen].tolist()
@@ -183,28 +184,26 @@ def run_query(lib, bias_V: float, temp_C: float = 25.0, *, min_C_F: float | None
     reason_arrays = {"present": present, "n_at": n_at, "bracket": bracket, "hi_at": hi_at, "lo_at": lo_at,
                      "t_min": t_min, "t_max": t_max, "T_lo": T_lo, "T_hi": T_hi, "hi_lo": hi_lo,
                      "hi_hi": hi_hi, "n_lo": p_lo.n, "n_hi": p_hi.n}
-    covered_parts = []
+    candidates = np.nonzero(part_ok)[0]
+    answers = covered[chosen[candidates]]
+    good = candidates[answers]
+    if min_C_F is not None:
+        good = good[C_key[chosen[good]] >= min_C_F]
+    # ranked by C, largest first; parts are in id order, so a stable sort breaks ties by id
+    good = good[np.argsort(-C_key[chosen[good]], kind="stable")]
+    parts = t.parts
+    covered_parts = [
+        QueryResult(parts[pi], True, C_l[pi], u_l[pi] if u_l[pi] == u_l[pi] else None, "",
+                    schema.ORIGINS[r_l[pi]], ends[pi] - starts[pi], tuple(used_ids[starts[pi]:ends[pi]]),
+                    (t_at[pi],) if at_l[pi] else (t_lo[pi], t_hi[pi]), lib.curve)
+        for pi in good.tolist()]
     uncovered_parts = []
-    for pi in np.nonzero(part_ok)[0].tolist():
-        part = t.parts[pi]
+    for pi in candidates[~answers].tolist():  # already in part id order
         k = int(chosen[pi])
-        if cov_l[pi]:
-            c = C_l[pi]
-            if min_C_F is not None and c < min_C_F:
-                continue
-            ids = tuple(used_ids[starts[pi]:ends[pi]])
-            temps = (t_at[pi],) if at_l[pi] else (t_lo[pi], t_hi[pi])
-            uk = u_l[pi]
-            covered_parts.append(QueryResult(
-                part, True, c, uk if uk == uk else None, "", schema.ORIGINS[r_l[pi]],
-                len(ids), ids, temps, lib.curve))
-        else:
-            info = {name: arr[k] for name, arr in reason_arrays.items()}
-            uncovered_parts.append(QueryResult(
-                part, False, None, None, _reason(V, T, tol, bool(any_curve[pi]), info),
-                schema.ORIGINS[r_l[pi]] if info["present"] else None, 0, (), (), lib.curve))
-    covered_parts.sort(key=lambda q: (-q.C_F, q.part_id))
-    uncovered_parts.sort(key=lambda q: q.part_id)
+        info = {name: arr[k] for name, arr in reason_arrays.items()}
+        uncovered_parts.append(QueryResult(
+            parts[pi], False, None, None, _reason(V, T, tol, bool(any_curve[pi]), info),
+            schema.ORIGINS[r_l[pi]] if info["present"] else None, 0, (), (), lib.curve))
     out = covered_parts + uncovered_parts
     return out[:limit] if limit is not None else out
 

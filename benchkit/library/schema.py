@@ -50,7 +50,8 @@ def _v1(conn: sqlite3.Connection) -> None:
 
     params_f64 / covariance_f64 / numbers_f64 hold float64 little-endian copies of the
     parameters (param_names order), the covariance and (valid_lo_V, valid_hi_V, temp_C,
-    origin rank in ORIGINS, branch code 0 none / 1 rising / 2 falling / 3 other), so
+    origin rank in ORIGINS, branch code 0 none / 1 rising / 2 falling / 3 other; from
+    version 3 also model_error_F, pack.N_NUMBERS), so
     the query can load a whole model group as one hex string, exactly (no decimal round trip).
     The documents live in their own table so that the curve rows stay small and a scan of
     them reads little.
@@ -137,7 +138,7 @@ def _v2(conn: sqlite3.Connection) -> None:
     - revision: a curve is never edited; a revision is a new record, and this small table names
       the content hash it replaces (the query answers from the latest);
     - verdict: verification reports (their JSON document), identified by content hash;
-    - curve_pack: the query's packed arrays (pack.py), filled here from the curves held.
+    - curve_pack: the query's packed arrays (pack.py; its layout and filling are _v3's).
     """
     for statement in (
         "ALTER TABLE part ADD COLUMN updated_utc TEXT NOT NULL DEFAULT ''",
@@ -170,14 +171,35 @@ def _v2(conn: sqlite3.Connection) -> None:
         )""",
     ):
         conn.execute(statement)
+    # the pack is filled by _v3, which gives it its present layout
+
+
+PACK_TABLE = """CREATE TABLE curve_pack (
+            id          INTEGER PRIMARY KEY,
+            model       TEXT NOT NULL,
+            param_names TEXT NOT NULL,
+            loose       INTEGER NOT NULL,
+            n           INTEGER NOT NULL,
+            ids         BLOB NOT NULL,
+            part_keys   TEXT NOT NULL,
+            part_codes  BLOB NOT NULL,
+            numbers     BLOB NOT NULL,
+            params      BLOB,
+            covariance  BLOB
+        )"""
+
+
+def _v3(conn: sqlite3.Connection) -> None:
+    """model_error_F among each curve's query numbers (the query's band includes it, as the
+    curve's own does); the pack keeps part codes and the covariance's lower triangle (pack.py)."""
     from benchkit.library import pack
 
-    pack.rebuild(conn)
+    pack.migrate_v3(conn, [PACK_TABLE])
 
 
 # MIGRATIONS[i] takes a file from version i to version i + 1. The PostgreSQL schema
 # (benchkit.library.postgres.MIGRATIONS) has the same versions, step for step.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_v1, _v2]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_v1, _v2, _v3]
 
 
 def latest_version() -> int:

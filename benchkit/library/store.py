@@ -134,7 +134,9 @@ def curve_columns(doc: dict[str, Any], where: str) -> dict[str, Any]:
     temp_C = REFERENCE_TEMP_C if temp is None else temp
     return {
         "numbers_f64": np.array([lo, hi, temp_C, schema.ORIGINS.index(origin),
-                                 branch_code(doc.get("branch") or source.get("branch"))], dtype="<f8").tobytes(),
+                                 branch_code(doc.get("branch") or source.get("branch")),
+                                 _number(doc.get("model_error_F"), where, "model_error_F") or 0.0],
+                                dtype="<f8").tobytes(),  # pack.N_NUMBERS, in this order
         "model": str(model),
         "param_names": json.dumps(names),
         "params_f64": params_blob,

@@ -27,7 +27,8 @@ def branch_code(branch: str | None) -> int:
 
 @dataclass
 class ModelGroup:
-    """Curves of one model variant: rows into the table, parameters (n, k), covariance (n, k, k)."""
+    """Curves of one model variant: rows into the table, parameters (n, k), the covariance's
+    lower triangle (n, k(k+1)/2, pack.tril order) and each curve's model-error term (n,)."""
 
     model: str
     param_names: tuple[str, ...]
@@ -35,31 +36,36 @@ class ModelGroup:
     rows: np.ndarray
     P: np.ndarray
     cov: np.ndarray
+    model_error: np.ndarray
 
     def evaluate(self, V: float, sel: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-        """C and its standard uncertainty u_C = sqrt(J Sigma J^T) for the group's curves at V
-        (those where sel is True, when given).
+        """C and its standard uncertainty for the group's curves at V (those where sel is True,
+        when given), with the band fits.Curve.u_C gives: u_C^2 = J Sigma J^T + model_error_F^2.
 
         J = dC/dp by central differences over the whole stack at once; the step follows
         fits.models.base.ModelSpec.jacobian (1e-6 of the parameter, or of the typical size of
         its kind when it is 0), so the answer matches Curve.u_C to the differencing error.
+        J Sigma J^T is summed over the stored triangle: diagonal terms once, the others twice.
         """
         names = self.param_names
+        k = len(names)
         P_all = self.P if sel is None else self.P[sel]
-        cov_all = self.cov if sel is None else self.cov[sel]
+        tri = self.cov if sel is None else self.cov[sel]
+        err = self.model_error if sel is None else self.model_error[sel]
         cols = {n: P_all[:, j] for j, n in enumerate(names)}
         nrow = P_all.shape[0]
+        ti, tj = pack.tril(k)
         with np.errstate(all="ignore"):
             C = np.broadcast_to(np.asarray(self.spec.C(V, **cols), dtype=float), (nrow,))
-            diag = np.diagonal(cov_all, axis1=1, axis2=2)
+            diag = tri[:, ti == tj]  # (n, k): the variances, in parameter order
             # parameters held fixed in every fit (variance 0, e.g. poly V_scale_V, table knots)
             # contribute nothing: skip their derivative (saves model calls).
-            active = [j for j in range(len(names)) if np.any(np.nan_to_num(diag[:, j]) != 0.0)]
+            active = [j for j in range(k) if np.any(np.nan_to_num(diag[:, j]) != 0.0)]
             cap = [j for j, n in enumerate(names) if n.endswith("_F")]
             cap_size = np.max(np.abs(P_all[:, cap]), axis=1) if cap else np.ones(nrow)
             cap_size = np.maximum(cap_size, 1e-30)
-            J = np.zeros((nrow, len(active)))
-            for col, j in enumerate(active):
+            J = np.zeros((nrow, k))
+            for j in active:
                 n = names[j]
                 p = P_all[:, j]
                 typical = cap_size if n.endswith("_F") else 1.0
@@ -68,11 +74,13 @@ class ModelGroup:
                 up[n] = p + h
                 dn = dict(cols)
                 dn[n] = p - h
-                J[:, col] = (np.asarray(self.spec.C(V, **up)) - np.asarray(self.spec.C(V, **dn))) / (2.0 * h)
-            sub = cov_all[:, active][:, :, active]
-            var = np.einsum("ni,nij,nj->n", J, sub, J)
-            u = np.sqrt(np.clip(var, 0.0, None))
-            u[np.any(np.isnan(cov_all.reshape(nrow, -1)), axis=1)] = np.nan  # no covariance stored
+                J[:, j] = (np.asarray(self.spec.C(V, **up)) - np.asarray(self.spec.C(V, **dn))) / (2.0 * h)
+            on = set(active)
+            use = np.array([a in on and b in on for a, b in zip(ti.tolist(), tj.tolist())], dtype=bool)
+            weight = np.where(ti == tj, 1.0, 2.0)[use]
+            var = np.einsum("np,np,p->n", J[:, ti[use]] * J[:, tj[use]], tri[:, use], weight)
+            u = np.sqrt(np.clip(var + err * err, 0.0, None))
+            u[np.any(np.isnan(tri), axis=1)] = np.nan  # no covariance stored
         return C, u
 
 
@@ -134,28 +142,18 @@ class CurveTable:
         return C, u
 
 
-def _part_index(pids: list[str], sorted_ids: np.ndarray, index: dict) -> np.ndarray:
-    """Row -> part number, by binary search over the sorted part ids (numpy, not a Python loop)."""
-    arr = np.array(pids)
-    pos = np.searchsorted(sorted_ids, arr)
-    pos = np.minimum(pos, max(len(sorted_ids) - 1, 0))
-    if len(sorted_ids) and np.array_equal(sorted_ids[pos], arr):
-        return pos.astype(np.int64)
-    return np.fromiter((index[x] for x in pids), dtype=np.int64, count=len(pids))  # raises on a stray id
-
-
 def load_table(conn, generation: int) -> CurveTable:
     """Read parts and the packed curves (inside one read snapshot) into arrays (pack.py).
 
     Curves superseded by a newer record of the same curve (Library.revise_curve) are left out:
     the query answers from the latest record of each curve.
     """
-    parts = [PartRecord(*r) for r in conn.execute(
+    run = getattr(conn, "execute_binary", conn.execute)  # PostgreSQL: numbers as numbers, no text round trip
+    parts = [PartRecord(*r) for r in run(
         "SELECT part_id, description, nominal_C_F, tolerance, rated_V, class_code, case_code, supplier "
         "FROM part ORDER BY part_id").fetchall()]
     parts.sort(key=lambda p: p.part_id)  # code-point order, whatever the server's collation
     index = {p.part_id: i for i, p in enumerate(parts)}
-    sorted_ids = np.array([p.part_id for p in parts]) if parts else np.zeros(0, dtype="U1")
     retired = {int(r[0]) for r in conn.execute(
         "SELECT c.id FROM revision r JOIN curve c ON c.content_sha256 = r.old_sha256")}
     chunks: dict[str, list[np.ndarray]] = {k: [] for k in
@@ -164,7 +162,7 @@ def load_table(conn, generation: int) -> CurveTable:
     loose_rows: list[tuple[int, int]] = []  # (row, curve id)
     start = 0
     for seg in pack.load(conn):
-        keep = np.ones(seg.n, dtype=bool)
+        keep = slice(None)  # all of them: views, no copies
         if retired:
             keep = ~np.isin(seg.ids, np.fromiter(retired, dtype=np.int64))
         ids = seg.ids[keep]
@@ -172,9 +170,9 @@ def load_table(conn, generation: int) -> CurveTable:
         if n == 0:
             continue
         numbers = seg.numbers[keep]
-        pids = seg.part_ids if keep.all() else [p for p, k in zip(seg.part_ids, keep.tolist()) if k]
+        lut = np.fromiter((index[p] for p in seg.part_keys), dtype=np.int64, count=len(seg.part_keys))
         chunks["id"].append(ids)
-        chunks["part"].append(_part_index(pids, sorted_ids, index))
+        chunks["part"].append(lut[seg.part_codes[keep]])  # codes -> part numbers, one numpy take
         chunks["lo"].append(numbers[:, 0])
         chunks["hi"].append(numbers[:, 1])
         chunks["temp"].append(numbers[:, 2])
@@ -189,7 +187,8 @@ def load_table(conn, generation: int) -> CurveTable:
             spec = fitsbridge.model_spec(seg.model, seg.param_names)
         except UserError:
             continue  # a model this benchkit does not know: its curves stay NaN (not covered)
-        groups.append(ModelGroup(seg.model, seg.param_names, spec, rows, seg.params[keep], seg.covariance[keep]))
+        groups.append(ModelGroup(seg.model, seg.param_names, spec, rows, seg.params[keep], seg.covariance[keep],
+                                 numbers[:, pack.MODEL_ERROR]))
     # curves whose parameters are not plain numbers: evaluated one by one through fits.Curve
     loose = []
     if loose_rows:

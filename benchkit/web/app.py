@@ -1,10 +1,14 @@
 """The web application: pages to rank, inspect and compare parts; downloads; the benches' write API.
 
 Rules: every page reads the library through its parameterised queries; nothing a request holds
-becomes a path (download names are made file-safe and nothing is written to disk); the write
-API (filing parts and curves) exists only when the server was given a token, and each write
-must carry it (`Authorization: Bearer TOKEN`). One Library object serves every request under a
-lock: the query's cached arrays are shared, and each request sees one consistent state.
+becomes a path (download names are made file-safe; the only files written are a filed run's
+three texts, under fixed names in a private temporary folder, while it is read); the write API
+(filing parts, curves and whole runs) exists only when the server was given a token, and each
+write must carry it (`Authorization: Bearer TOKEN`); a body is read no further than its limit.
+A whole run (POST /api/runs, benchkit.library.filing) is checked by the readers `benchkit
+library add RUN_DIR` uses, and fitted and filed as that command does. One Library object
+serves every request under a lock: the query's cached arrays are shared, and each request
+sees one consistent state.
 """
 
 from __future__ import annotations
@@ -184,27 +188,66 @@ def create_app(target, *, token: str | None = None) -> Starlette:
         if len(token) < 16:
             raise UserError("serve: the write token must be at least 16 characters")
 
-        async def api_write(request: Request):
+        def authorised(request: Request) -> bool:
             given = request.headers.get("authorization", "")
-            if not hmac.compare_digest(given.encode(), f"Bearer {token}".encode()):
-                return JSONResponse({"error": "a valid token is needed to write"}, status_code=401)
-            body = await request.body()
-            if len(body) > MAX_BODY_BYTES:
-                return JSONResponse({"error": "request too large"}, status_code=413)
+            return hmac.compare_digest(given.encode(), f"Bearer {token}".encode())
+
+        async def json_body(request: Request, limit: int):
+            """The request's JSON, read no further than `limit` bytes; or the refusal to send."""
+            declared = request.headers.get("content-length", "")
+            if declared.isdigit() and int(declared) > limit:
+                return None, _too_large(limit)
+            chunks, size = [], 0
+            async for chunk in request.stream():
+                size += len(chunk)
+                if size > limit:
+                    return None, _too_large(limit)
+                chunks.append(chunk)
             try:
-                doc = json.loads(body)
-            except ValueError as exc:
-                return JSONResponse({"error": f"not JSON ({exc})"}, status_code=400)
+                return json.loads(b"".join(chunks)), None
+            except (ValueError, RecursionError) as exc:
+                return None, JSONResponse({"error": f"the body is not JSON ({str(exc)[:120]}); send a JSON object"},
+                                          status_code=400)
+
+        async def api_write(request: Request):
+            if not authorised(request):
+                return JSONResponse({"error": "a valid token is needed to write"}, status_code=401)
+            doc, refusal = await json_body(request, MAX_BODY_BYTES)
+            if refusal is not None:
+                return refusal
             from starlette.concurrency import run_in_threadpool
 
             return await run_in_threadpool(guarded(lambda req, lib: _write(request.url.path, doc, lib)), request)
 
+        async def api_runs(request: Request):
+            """A whole run (benchkit.library.filing): checked, fitted and filed as `library add` does."""
+            from benchkit.library import filing
+
+            if not authorised(request):
+                return JSONResponse({"error": "a valid token is needed to write"}, status_code=401)
+            body, refusal = await json_body(request, filing.MAX_RUN_BYTES)
+            if refusal is not None:
+                return refusal
+            from starlette.concurrency import run_in_threadpool
+
+            def file_it(req, lib):
+                return JSONResponse(filing.receipt(lib, filing.file_body(lib, body)))
+
+            return await run_in_threadpool(guarded(file_it), request)
+
         routes += [Route("/api/parts", api_write, methods=["POST"]),
-                   Route("/api/curves", api_write, methods=["POST"])]
+                   Route("/api/curves", api_write, methods=["POST"]),
+                   Route("/api/runs", api_runs, methods=["POST"])]
 
     app = Starlette(routes=routes)
     app.state.library = shared.lib
     return app
+
+
+def _too_large(limit: int) -> JSONResponse:
+    return JSONResponse({"error": f"request too large: more than {limit // 1_000_000} MB; "
+                                  f"file a larger run with the library's file or postgresql:// URL"},
+                        status_code=413)
 
 
 def _write(path: str, doc: Any, lib) -> JSONResponse:

@@ -213,3 +213,57 @@ def test_bad_query_arguments(lib, mk):
         lib.query(1.0, origin="rumour")
     with pytest.raises(UserError, match="branch"):
         lib.query(1.0, branch="sideways")
+
+
+def test_band_includes_the_model_error_term(lib):
+    # A landau law fitted to a sech^2 peak (invented numbers; scatter 1 nF) does not describe
+    # the data: the fit adds a model-error term s_m to the band (fits/quality.py). The query's
+    # vectorised band must be the curve's own, u_C^2 = J Sigma J^T + s_m^2 (fits.Curve.u_C, the
+    # reference; GUM 5.1.2 for the first term), with the correlated covariance the fit gives.
+    from fits import fit_sweep
+
+    V = np.linspace(0.0, 6.0, 25)
+    C = 1.5e-6 + 8.5e-6 / np.cosh((V - 0.8) / 2.0) ** 2
+    curve = fit_sweep(V, C, np.full_like(V, 1e-9), model="landau").curve
+    curve.part_id = "BD-1001"
+    assert curve.model_error_F > 0 and curve.stats["describes_data"] is False
+    assert curve.covariance[0, 1] != 0.0  # off-diagonal terms: the stored triangle counts them twice
+    lib.add_curve(curve)
+    for bias in (0.0, 1.0, 3.0, 6.0):
+        [r] = [q for q in lib.query(bias) if q.part_id == "BD-1001"]
+        fit_only = math.sqrt(float(np.einsum("i,ij,j->", J := curve.spec.jacobian([bias], curve.params)[0],
+                                             curve.covariance, J)))
+        assert r.u_C_F == pytest.approx(float(curve.u_C(bias)), rel=1e-6)
+        assert r.u_C_F > 1.05 * fit_only  # the term is there, not just the fit's own part
+
+
+def test_migration_to_v3_brings_the_model_error_into_the_query(library_target):
+    # A schema-2 library (query numbers without model_error_F, the old pack layout) is migrated
+    # on open, on either backend: afterwards the query's band is the curve's own again
+    # (fits.Curve.u_C, the reference).
+    from fits import fit_sweep
+    from benchkit.library import Library, schema
+
+    V = np.linspace(0.0, 6.0, 25)
+    curve = fit_sweep(V, 1.5e-6 + 8.5e-6 / np.cosh((V - 0.8) / 2.0) ** 2, np.full_like(V, 1e-9),
+                      model="landau").curve
+    with Library(library_target) as lib:
+        lib.add_part({"id": "BD-1001", "nominal_C_F": 10e-6, "rated_V": 6.3})
+        lib.add_curve(curve, "BD-1001")
+        blob = "BYTEA" if lib.kind == "postgresql" else "BLOB"
+        with lib._db.write() as conn:  # what a version-2 library held
+            conn.execute("DROP TABLE curve_pack")
+            conn.execute(f"CREATE TABLE curve_pack (id INTEGER PRIMARY KEY, model TEXT NOT NULL, "
+                         f"param_names TEXT NOT NULL, loose INTEGER NOT NULL, n INTEGER NOT NULL, ids {blob} NOT NULL, "
+                         f"part_ids TEXT NOT NULL, numbers {blob} NOT NULL, params {blob}, covariance {blob})")
+            conn.execute("UPDATE curve SET numbers_f64 = substr(numbers_f64, 1, 40)")
+            if lib.kind == "postgresql":
+                conn.execute("UPDATE meta SET value = '2' WHERE key = 'schema_version'")
+            else:
+                conn.execute("PRAGMA user_version = 2")
+    with Library(library_target) as lib:
+        version = (lib._db.conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0]
+                   if lib.kind == "postgresql" else lib._db.conn.execute("PRAGMA user_version").fetchone()[0])
+        assert int(version) == schema.latest_version() == 3
+        [r] = lib.query(3.0)
+        assert r.u_C_F == pytest.approx(float(curve.u_C(3.0)), rel=1e-6)

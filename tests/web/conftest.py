@@ -124,6 +124,13 @@ class LiveServer:
         self.thread.join(10)
 
 
+@pytest.fixture
+def live_server():
+    """LiveServer itself, for tests that serve an app of their own (test modules cannot import
+    conftest under importlib mode)."""
+    return LiveServer
+
+
 def _need(reason: str):
     """Skip with the reason, or fail under CI (CI=true), where Chromium is installed."""
     import os
