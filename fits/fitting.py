@@ -20,7 +20,10 @@ How a fit is done, and why:
   standard error (of the paired differences) of the best counts as as good; among those the
   compact laws come first, then the fewest free parameters, then the score. A polynomial
   whose curve turns between the points where the data do not (fits.quality.turns on a fine
-  grid) is refused. Why not BIC any more: on 11-point branches BIC let degree 5-8 polynomials
+  grid) is refused. Cost: the polynomial variants share one QR per nest (_linear_loo), and
+  a simpler variant of a law is not fitted when the freer fit already shows it cannot be
+  chosen (_decisively_worse); tests/fits/test_choice_shortcuts.py checks both change
+  nothing. Why not BIC any more: on 11-point branches BIC let degree 5-8 polynomials
   win and follow the noise; prediction of unseen points does not reward that.
 - Lack of fit (fits.quality): structured residuals or chi-square far above expectation mark
   the fit as not describing the data and add a model-error term to its band.
@@ -44,6 +47,7 @@ from dataclasses import dataclass, field
 from typing import Mapping
 
 import numpy as np
+from scipy.linalg import solve_triangular
 
 from fits import models, quality
 from fits.curve import Curve
@@ -385,6 +389,8 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
     for variant in variants:
         if fits and _same_as_previous(variant, fits[-1]):
             continue  # the previous fit already ended with these parameters held there
+        if fits and _decisively_worse(variant, fits[-1], data):
+            continue  # the freer fit shows the data refute what this variant fixes
         try:
             vf = _fit_variant(variant, data, start, chained)
             if start is not None and vf.spec is spec:
@@ -443,6 +449,40 @@ def _flat_first(fits_by_family: dict, data: SweepData, order, table):
     return order, [row] + [r for r in table if r["name"] != "poly"]
 
 
+#: a simpler variant is not fitted when the freer one's leave-one-out score is below this
+#: fraction of what the simpler one must at least score (twice _AS_GOOD_RATIO: a margin)
+_SCREEN_RATIO = 2.0 * _AS_GOOD_RATIO
+
+
+def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData) -> bool:
+    """Cheap screening of a simpler variant of the family before fitting it.
+
+    Fixing parameters the freer fit determined at other values raises chi-square by about
+    Delta = d^T Sigma^-1 d (d their distance to the fixed values, Sigma their unscaled
+    covariance block; the quadratic approximation of the sum of squares at its minimum). A
+    leave-one-out score is at least chi-square / n (every 1/(1 - h_ii) >= 1). So when the
+    freer fit describes the data and (chi2 + Delta/2)/n, half the estimate as a margin
+    for the approximation, exceeds _SCREEN_RATIO times its own score, the simpler variant
+    could be neither as good (_AS_GOOD_RATIO) nor the best-scoring one that describes the
+    data: _choose would never pick it, and its fit is skipped."""
+    if prev.spec is not variant.spec or prev.covar_scale <= 0:
+        return False
+    names = [n for n in variant.fixed if n in prev.free_names]
+    if not names or any(n in prev.held for n in variant.fixed):
+        return False
+    _assess(prev, data)
+    if not prev.quality["describes_data"]:
+        return False
+    pos = [prev.spec.param_names.index(n) for n in names]
+    cov_u = prev.covariance[np.ix_(pos, pos)] / prev.covar_scale
+    d = np.array([prev.params[n] - float(variant.fixed[n]) for n in names])
+    try:
+        delta = float(d @ np.linalg.solve(cov_u, d))
+    except np.linalg.LinAlgError:
+        return False
+    return bool((prev.chi2 + 0.5 * delta) / prev.n > _SCREEN_RATIO * prev.loo)
+
+
 def _same_as_previous(variant: Variant, prev: VariantFit) -> bool:
     """True when the previous (freer) fit of the family ended with every parameter this
     variant fixes either fixed too or held on a bound at the same value: same fit again."""
@@ -459,10 +499,10 @@ def _same_as_previous(variant: Variant, prev: VariantFit) -> bool:
     return True
 
 
-def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
-    """The polynomial variant chosen as _fit_family chooses, from exact leave-one-out
-    residuals of each variant's QR solution (no full fit per variant): the best by
-    _choose whose curve does not turn where the data do not."""
+def _linear_loo(variants: list[Variant], data: SweepData) -> dict[int, tuple]:
+    """index -> (squared weighted leave-one-out residuals, coefficients) of each polynomial
+    variant that the data determine: r_i/(1 - h_ii) from its QR solution, exact for a
+    linear model (no refit per left-out point)."""
     w = data.weights
     yw = data.C_F * w
     typical = float(np.sqrt(np.mean(yw**2)))
@@ -470,23 +510,48 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
     x = data.bias_V / Vs
     top = max(v.spec.degree for v in variants)
     X = x[:, None] ** np.arange(top + 1)[None, :] * w[:, None]
-    scores, keys, coefs = {}, {}, {}
+    out = {}
+    # the variants are nested (degrees 0..d, even degrees 0..2m): the QR of a set of leading
+    # columns is the leading part of the QR of them all, so one factorisation per nest
+    # gives every variant's solution, hat diagonal and residuals
+    nests: dict[tuple, tuple] = {}
     for i, v in enumerate(variants):
-        k = len(v.spec.powers)
+        powers = tuple(v.spec.powers)
+        k = len(powers)
         if data.n <= k or data.n_distinct < k:
             continue
-        Q, R = np.linalg.qr(X[:, list(v.spec.powers)])
+        step = 2 if k > 1 and powers[1] == 2 else 1
+        nest = tuple(range(0, top + 1, step))
+        if powers != nest[:k]:
+            nest = powers
+        if nest not in nests:
+            Qn, Rn = np.linalg.qr(X[:, list(nest)])
+            qb = Qn.T @ yw
+            nests[nest] = (Qn, Rn, qb, np.cumsum(Qn * Qn, axis=1),
+                           yw[:, None] - np.cumsum(Qn * qb[None, :], axis=1))
+        Qn, Rn, qb, H, Res = nests[nest]
+        R = Rn[:k, :k]
         d = np.abs(np.diag(R))
         if d.min() < _MIN_RCOND * d.max():
             continue
-        coef = np.linalg.solve(R, Q.T @ yw)
-        h = np.einsum("ij,ij->i", Q, Q)
-        r = yw - Q @ (Q.T @ yw)
+        h = H[:, k - 1]
+        r = Res[:, k - 1]
         with np.errstate(divide="ignore", invalid="ignore"):
             e = np.where(h < 1.0 - 1e-9, r / (1.0 - h), np.inf)
-        scores[i] = np.maximum(e * e, (_LOO_FLOOR_REL * typical) ** 2)
-        keys[i] = (True, k, 0, True)
-        coefs[i] = coef
+        out[i] = (np.maximum(e * e, (_LOO_FLOOR_REL * typical) ** 2),
+                  solve_triangular(R, qb[:k]))
+    return out
+
+
+def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
+    """The polynomial variant chosen as _fit_family chooses, from the exact leave-one-out
+    residuals of _linear_loo (no full fit per variant): the best by _choose whose curve does
+    not turn where the data do not."""
+    loo = _linear_loo(variants, data)
+    scores = {i: sc for i, (sc, _) in loo.items()}
+    coefs = {i: c for i, (_, c) in loo.items()}
+    keys = {i: (True, len(variants[i].spec.powers), 0, True) for i in loo}
+    x = data.bias_V / float(variants[0].fixed["V_scale_V"])
     if not scores:
         return variants[0]
     allowed = None
