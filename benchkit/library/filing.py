@@ -147,6 +147,7 @@ def _check_body(body: Any) -> dict[str, Any]:
 
 def file_body(lib, body: Any) -> list:
     """Check and file one body (see the module docstring); returns ingest.AddRunSummary items."""
+    from benchkit.atomic import write_bytes_atomic
     from benchkit.library.ingest import add_run_parts
 
     body = _check_body(body)
@@ -155,7 +156,7 @@ def file_body(lib, body: Any) -> list:
         folder.mkdir(mode=0o700)
         for name in (RUN_FILE, POINTS_FILE, CHAIN_FILE):
             if name in body:
-                (folder / name).write_bytes(body[name].encode("utf-8"))
+                write_bytes_atomic(folder / name, body[name].encode("utf-8"))
         try:
             return add_run_parts(lib, folder, body.get("part"), all_parts=body.get("all_parts", False),
                                  model=body.get("model", "auto"),
