@@ -9,6 +9,7 @@ terminal or a run that later cannot be read back. The limits are far above any r
 from __future__ import annotations
 
 import difflib
+import json
 import tomllib
 from typing import Any, Iterable
 
@@ -111,6 +112,20 @@ def loads_toml(text: str, where: str, what: str = "file", syntax: str = "not val
     if data_depth(data) > MAX_DEPTH:
         raise UserError(f"{where}: tables nested more than {MAX_DEPTH} deep (dotted keys); "
                         f"not a benchkit {what}")
+    return data
+
+
+def loads_json(text: str, where: str, what: str = "file") -> Any:
+    """json.loads with the bounds above; every problem is one UserError line."""
+    check_text(text, where, what)
+    try:
+        data = json.loads(text)
+    except ValueError as exc:
+        raise UserError(f"{where}: not valid JSON ({exc})") from None
+    except RecursionError:
+        raise UserError(f"{where}: not valid JSON (nested too deeply to be a {what})") from None
+    if data_depth(data) > MAX_DEPTH:
+        raise UserError(f"{where}: nested deeper than {MAX_DEPTH} levels; not a {what}")
     return data
 
 

@@ -9,7 +9,7 @@ import sys
 from contextlib import contextmanager
 from pathlib import Path
 
-from benchkit.bounded import MAX_DEPTH, check_text, data_depth
+from benchkit.bounded import loads_json
 from benchkit.errors import UserError
 from benchkit.units import arg_type, format_value
 
@@ -288,15 +288,7 @@ def _add(args) -> int:
 
 
 def _add_verdict(args, src: Path, text: str) -> int:
-    check_text(text, str(src), "verification report")
-    try:
-        doc = json.loads(text)
-    except ValueError as exc:
-        raise UserError(f"{src}: not valid JSON ({exc})") from None
-    except RecursionError:
-        raise UserError(f"{src}: not valid JSON (nested too deeply to be a verification report)") from None
-    if data_depth(doc) > MAX_DEPTH:
-        raise UserError(f"{src}: nested deeper than {MAX_DEPTH} levels; not a verification report")
+    doc = loads_json(text, str(src), "verification report")
     with _open(args, create=True) as lib:
         vid, added = lib.add_verdict(doc, where=str(src))
         print(f"verification report {vid} {'added' if added else 'already present'} in {lib.where}")

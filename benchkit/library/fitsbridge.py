@@ -10,7 +10,7 @@ import hashlib
 import json
 from typing import Any
 
-from benchkit.bounded import MAX_DEPTH, check_id, check_text, data_depth
+from benchkit.bounded import MAX_DEPTH, check_id, data_depth, loads_json
 from benchkit.errors import UserError
 
 
@@ -60,20 +60,8 @@ def curve_from_dict(doc: dict[str, Any], where: str):
 
 
 def curve_from_json(text: str, where: str):
-    check_text(text, where, "curve document")
-    try:
-        doc = json.loads(text)
-    except ValueError as exc:
-        raise UserError(f"{where}: not valid JSON ({exc})") from None
-    except RecursionError:
-        raise UserError(f"{where}: not valid JSON (nested too deeply to be a curve document)") from None
-    _check_ids(doc, where)
-    try:
-        return curve_class().from_json(text, where)
-    except fits_errors() as exc:
-        raise _as_user_error(exc, where) from None
-    except (KeyError, TypeError, ValueError) as exc:
-        raise UserError(f"{where}: not a usable curve document ({exc})") from None
+    """A curve document's text, parsed once with the readers' bounds."""
+    return curve_from_dict(loads_json(text, where, "curve document"), where)
 
 
 def curve_document(curve) -> dict[str, Any]:
