@@ -58,6 +58,23 @@ def _images_loaded(driver, timeout_s=30.0) -> bool:
     return False
 
 
+def _click_and_wait(driver, element, timeout_s=30.0) -> None:
+    """Click a link or submit button and wait until the next page has replaced this one.
+
+    A click only starts the navigation; reading the DOM straight after it can still see the old
+    page (what a slow shared machine showed), so wait for the old root to go stale and the new
+    document to finish loading (Selenium's documented explicit-wait pattern)."""
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support import expected_conditions as EC
+    from selenium.webdriver.support.ui import WebDriverWait
+
+    old_root = driver.find_element(By.TAG_NAME, "html")
+    element.click()
+    wait = WebDriverWait(driver, timeout_s)
+    wait.until(EC.staleness_of(old_root))
+    wait.until(lambda drv: drv.execute_script("return document.readyState") == "complete")
+
+
 def test_rank_compare_part_and_spice_download(chromium, demo_site, demo_library, tmp_path):
     from selenium.webdriver.common.by import By
 
@@ -71,7 +88,7 @@ def test_rank_compare_part_and_spice_download(chromium, demo_site, demo_library,
     temp = d.find_element(By.ID, "temp")
     temp.clear()
     temp.send_keys("25")
-    d.find_element(By.ID, "rank").click()
+    _click_and_wait(d, d.find_element(By.ID, "rank"))
     ranked = [a.text for a in d.find_elements(By.CSS_SELECTOR, "#ranking a.part-link")]
     truth = _truth_order(demo_library)
     assert len(truth) >= 3 and ranked == truth
@@ -83,7 +100,7 @@ def test_rank_compare_part_and_spice_download(chromium, demo_site, demo_library,
     boxes = d.find_elements(By.CSS_SELECTOR, "#ranking input[type=checkbox]")
     for box in boxes[:3]:
         box.click()
-    d.find_element(By.ID, "compare").click()
+    _click_and_wait(d, d.find_element(By.ID, "compare"))
     compared = [a.text for a in d.find_elements(By.CSS_SELECTOR, "#compared a")]
     assert compared == ranked[:3]
     assert d.find_element(By.ID, "compare-F").is_displayed() and d.find_element(By.ID, "compare-pct").is_displayed()
@@ -91,7 +108,7 @@ def test_rank_compare_part_and_spice_download(chromium, demo_site, demo_library,
     _shot(d, "compare")
 
     # the best part's page, its plot, and a SPICE model of its first curve
-    d.find_element(By.CSS_SELECTOR, "#compared a").click()
+    _click_and_wait(d, d.find_element(By.CSS_SELECTOR, "#compared a"))
     assert d.find_element(By.ID, "part-id").text == ranked[0]
     assert _images_loaded(d)
     _shot(d, "part")
@@ -121,5 +138,5 @@ def test_rank_compare_part_and_spice_download(chromium, demo_site, demo_library,
     assert verdicts and verdicts[0].text in ("conforming", "nonconforming", "not decidable")
     assert _images_loaded(d)
     _shot(d, "part-with-claim")
-    d.find_element(By.CSS_SELECTOR, "#verdicts a").click()
+    _click_and_wait(d, d.find_element(By.CSS_SELECTOR, "#verdicts a"))
     assert "Lot verdict" in d.page_source
