@@ -7,6 +7,15 @@ sqrt(n_readings) (the standard deviation of the mean of the point's readings, JC
 point in progress when the run stopped, benchkit.sweep.runlog.read_points); points flagged with a
 word of LEFT_OUT_FLAGS are left out of every fit and counted; points edited after the run
 ended (sha256 differs from run.json) are refused.
+
+The turning point belongs to both branches. The engine reads the top of a loop once, on the
+way up (labelled rising); the falling leg starts from that very state, so the reading at the
+top is also the falling branch's first point (a hysteresis loop's legs meet at its turning
+points [common practice]) and a falling curve covers the range that was swept. Per sample and
+polarity: when the falling readings stop below the highest rising bias, the rising readings
+at that bias are given to the falling branch as well (SamplePoints.turning marks the copies).
+Each branch is fitted on its own, so no fit counts a reading twice; the joint tanh fit of
+both branches does, for that one bias.
 """
 
 from __future__ import annotations
@@ -65,6 +74,8 @@ class SamplePoints:
     lines: tuple[int, ...] = ()  # their line numbers in points.csv
     left_out_rows: list[dict] = field(default_factory=list)
     left_out_lines: tuple[int, ...] = ()
+    #: True where a point is the loop's turning point given to the falling branch too
+    turning: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
 
     @property
     def n_points(self) -> int:
@@ -98,7 +109,8 @@ class SamplePoints:
                        temp_C=self.temp_C[keep], branch=self.branch[keep],
                        rows=[self.rows[i] for i in idx], lines=tuple(self.lines[i] for i in idx),
                        left_out_rows=[self.left_out_rows[i] for i in out],
-                       left_out_lines=tuple(self.left_out_lines[i] for i in out))
+                       left_out_lines=tuple(self.left_out_lines[i] for i in out),
+                       turning=self.turning[keep])
 
 
 @dataclass(frozen=True)
@@ -170,13 +182,38 @@ def _sample(sid: str, items: list[tuple[int, dict]], dropped: list[tuple[int, di
         temp.append(_num(r, "temp_C", path, line, required=False))
         labels.append(r["branch"])
     first = (items or dropped)[0][1]
+    n_read = len(items)
+    for i in _turning_points(V, labels):  # the top of each loop, for the falling branch too
+        items = items + [(items[i][0], dict(items[i][1], branch="falling"))]
+        for col in (V, C, std, n, temp):
+            col.append(col[i])
+        labels.append("falling")
+    turning = np.arange(len(items)) >= n_read
     return SamplePoints(
         sample_id=sid, part_id=first["part_id"] or None,
         bias_V=np.array(V, dtype=float), C_F=np.array(C, dtype=float),
         C_std_F=np.array(std, dtype=float), n_readings=np.array(n, dtype=float),
         temp_C=np.array(temp, dtype=float), branch=np.array(labels, dtype=object),
         rows=[r for _, r in items], lines=tuple(line for line, _ in items),
-        left_out_rows=[r for _, r in dropped], left_out_lines=tuple(line for line, _ in dropped))
+        left_out_rows=[r for _, r in dropped], left_out_lines=tuple(line for line, _ in dropped),
+        turning=turning)
+
+
+def _turning_points(V: list[float], labels: list[str]) -> list[int]:
+    """Indexes of the rising readings at a loop's top that the falling branch lacks: per
+    polarity, those at the highest rising |bias| when every falling reading of that polarity
+    lies below it (to a part in 10^9 of the bias)."""
+    out = []
+    for sign in (1.0, -1.0):
+        rising = [i for i, (v, b) in enumerate(zip(V, labels)) if b == "rising" and sign * v > 0]
+        falling = [sign * v for v, b in zip(V, labels) if b == "falling" and sign * v > 0]
+        if not rising or not falling:
+            continue
+        top = max(sign * V[i] for i in rising)
+        tol = 1e-9 * top
+        if max(falling) < top - tol:
+            out += [i for i in rising if sign * V[i] >= top - tol]
+    return out
 
 
 def _check_rows(rows: list[dict], path: Path) -> None:

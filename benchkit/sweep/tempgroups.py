@@ -33,6 +33,7 @@ def split_by_temperature(smp, tol_C: float = TEMP_GROUP_TOL_C) -> list:
         part = replace(smp, bias_V=smp.bias_V[keep], C_F=smp.C_F[keep], C_std_F=smp.C_std_F[keep],
                        n_readings=smp.n_readings[keep], temp_C=smp.temp_C[keep],
                        branch=smp.branch[keep], rows=[smp.rows[i] for i in idx],
-                       lines=tuple(smp.lines[i] for i in idx), left_out_rows=[], left_out_lines=())
+                       lines=tuple(smp.lines[i] for i in idx), left_out_rows=[], left_out_lines=(),
+                       turning=smp.turning[keep])
         out.append((float(np.mean(T[keep])), part))
     return out

@@ -113,13 +113,49 @@ def test_a_flagged_point_is_left_out_and_counted(tmp_path, flag):
     pts[6] = dict(pts[6], flags="temp_change")  # a flag that does not leave the point out
     data = rundir.read_run_dir(write_run(tmp_path / "run", pts))
     s = data.samples["FX-01"]
-    assert data.left_out == s.left_out == 1 and s.n_points == len(pts) - 1
+    # + 1: the top reading counts in the falling branch too (the loop's turning point)
+    assert data.left_out == s.left_out == 1 and s.n_points == len(pts) - 1 + 1
     assert s.left_out_lines == (6,) and s.left_out_rows[0]["flags"] == f"retried;{flag}"
     assert pts[4]["C_F"] not in s.C_F and pts[6]["C_F"] in s.C_F
     assert data.left_out_flags == rundir.LEFT_OUT_FLAGS
     rising = s.select("rising")
     assert rising.n_points == len(V_STEPS) - 1 and rising.left_out == 1
     assert s.select("falling").left_out == 0 and s.branches() == ["rising", "falling"]
+
+
+def test_the_turning_point_belongs_to_both_branches(tmp_path):
+    # common practice: the legs of a hysteresis loop meet at its turning point; the falling
+    # leg starts from the state read at the top, so a falling curve covers the swept range
+    pts = make_points()
+    data = rundir.read_run_dir(write_run(tmp_path / "run", pts))
+    s = data.samples["FX-01"]
+    top = float(V_STEPS[-1])
+    falling = s.select("falling")
+    assert float(falling.bias_V.max()) == top and falling.n_points == len(V_STEPS)
+    assert falling.turning.sum() == 1 and float(falling.bias_V[falling.turning][0]) == top
+    i_top = next(i for i, p in enumerate(pts) if p["bias_set_V"] == top)
+    assert float(falling.C_F[falling.turning][0]) == pts[i_top]["C_F"]
+    assert falling.lines[int(np.flatnonzero(falling.turning)[0])] == i_top + 2  # same points.csv line
+    rising = s.select("rising")
+    assert rising.n_points == len(V_STEPS) and not rising.turning.any()
+    from fits import fit_branches
+    out = fit_branches(s.bias_V, s.C_F, s.branch, s.sigma_F)
+    assert out.curves["falling"].valid_range_V == (0.0, top) == out.curves["rising"].valid_range_V
+
+
+def test_a_falling_branch_that_reaches_the_top_gets_no_copy(tmp_path):
+    pts = make_points()
+    pts.append(dict(pts[len(V_STEPS) - 1], step_index=len(pts), branch="falling"))
+    s = rundir.read_run_dir(write_run(tmp_path / "run", pts)).samples["FX-01"]
+    assert not s.turning.any() and s.n_points == len(pts)
+
+
+def test_a_flagged_top_reading_is_not_copied(tmp_path):
+    pts = make_points()
+    i_top = len(V_STEPS) - 1
+    pts[i_top] = dict(pts[i_top], flags="overload")
+    s = rundir.read_run_dir(write_run(tmp_path / "run", pts)).samples["FX-01"]
+    assert not s.turning.any() and s.left_out == 1
 
 
 def test_extra_flags_leave_more_out(tmp_path):
@@ -164,8 +200,9 @@ def test_sigma_is_C_std_over_sqrt_n(tmp_path):
     pts = make_points(n_readings=5)
     pts[1] = dict(pts[1], n_readings=2)
     s = rundir.read_run_dir(write_run(tmp_path / "run", pts)).samples["FX-01"]
-    std = np.array([p["C_std_F"] for p in pts])
-    n = np.array([p["n_readings"] for p in pts], dtype=float)
+    s = s.select("rising")  # the readings once each (the top is copied to the falling branch)
+    std = np.array([p["C_std_F"] for p in pts if p["branch"] == "rising"])
+    n = np.array([p["n_readings"] for p in pts if p["branch"] == "rising"], dtype=float)
     np.testing.assert_allclose(s.sigma_F, std / np.sqrt(n), rtol=1e-15)
     np.testing.assert_array_equal(s.n_readings, n)
 
@@ -191,7 +228,7 @@ def test_points_changed_after_the_run_ended_are_refused(tmp_path):
     with pytest.raises(UserError, match="so they are not added$"):
         rundir.read_run_dir(run, action="added")
     path.write_text(text)  # the bytes run.json was sealed with: accepted again
-    assert rundir.read_run_dir(run).samples["FX-01"].n_points == len(make_points())
+    assert rundir.read_run_dir(run).samples["FX-01"].n_points == len(make_points()) + 1  # top in both branches
 
 
 @pytest.mark.parametrize("change, words", [
