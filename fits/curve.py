@@ -183,8 +183,11 @@ class Curve:
         (fits.quality). The band covers the fitted curve's uncertainty, not the scatter of
         single readings."""
         V = self._check(V, extrapolate)
-        J = self.spec.jacobian(np.ravel(V), self.params)
-        var = np.einsum("ij,jk,ik->i", J, self.covariance, J) + self.model_error_F**2
+        # parameters without a variance (fixed, held) add nothing: their columns are skipped
+        keep = np.flatnonzero(np.diag(self.covariance) > 0.0)
+        J = self.spec.jacobian_of(np.ravel(V), self.params, [self.param_names[i] for i in keep])
+        cov = self.covariance[np.ix_(keep, keep)]
+        var = np.einsum("ij,jk,ik->i", J, cov, J) + self.model_error_F**2
         u = np.sqrt(np.clip(var, 0.0, None)).reshape(np.shape(V))
         return _out(u, V)
 

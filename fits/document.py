@@ -106,16 +106,21 @@ def check_covariance(cov: Any, k: int, where: str) -> np.ndarray:
     shape_msg = f"must be a {k}x{k} matrix of numbers (one row per name in param_names)"
     if cov is None:
         return np.zeros((k, k))
-    if isinstance(cov, np.ndarray):
-        rows = cov.tolist()
+    if isinstance(cov, np.ndarray) and cov.dtype.kind == "f":
+        # a fit's own matrix: checked whole, not number by number
+        if cov.shape != (k, k):
+            _fail(where, "covariance", shape_msg)
+        if not np.all(np.isfinite(cov)):
+            _fail(where, "covariance", shape_msg + "; all finite")
+        a = np.array(cov, dtype=float)
     else:
-        rows = cov
-    if (not isinstance(rows, (list, tuple)) or len(rows) != k
-            or not all(isinstance(r, (list, tuple)) and len(r) == k for r in rows)):
-        _fail(where, "covariance", shape_msg)
-    if not all(_finite(x) for r in rows for x in r):
-        _fail(where, "covariance", shape_msg + "; all finite")
-    a = np.array(rows, dtype=float)
+        rows = cov.tolist() if isinstance(cov, np.ndarray) else cov
+        if (not isinstance(rows, (list, tuple)) or len(rows) != k
+                or not all(isinstance(r, (list, tuple)) and len(r) == k for r in rows)):
+            _fail(where, "covariance", shape_msg)
+        if not all(_finite(x) for r in rows for x in r):
+            _fail(where, "covariance", shape_msg + "; all finite")
+        a = np.array(rows, dtype=float)
     scale = np.sqrt(np.outer(np.abs(np.diag(a)), np.abs(np.diag(a))))
     if np.any(np.abs(a - a.T) > 1e-9 * scale + 1e-300):
         _fail(where, "covariance", "must be symmetric")

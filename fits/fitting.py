@@ -13,10 +13,11 @@ How a fit is done, and why:
 - Covariance: (J^T W J)^-1 from the analytic jacobian at the optimum, scaled by
   fits.statistics.covariance_scale: chi2_red when unweighted, max(1, chi2_red) when weighted.
 - Choice, within a family (polynomial degree, variants of a law) and between families
-  ("auto": tanh, genjohnson, landau, poly), by how well each predicts the points it did not
+  ("auto": tanh, genjohnson, landau, poly, spline), by how well each predicts the points it did not
   see: the leave-one-out residual r_i/(1 - h_ii), h the hat matrix of the (linearised) fit,
   exact for a linear model [published: standard regression texts]. The score is the mean of
-  the squared weighted leave-one-out residuals. Every candidate whose score is within one
+  the squared weighted leave-one-out residuals of the points inside the bias range
+  (_scored_points: leaving out an end point would score extrapolation, which no curve does). Every candidate whose score is within one
   standard error (of the paired differences) of the best counts as as good; among those the
   compact laws come first, then the fewest free parameters, then the score. A polynomial
   whose curve turns between the points where the data do not (fits.quality.turns on a fine
@@ -27,13 +28,19 @@ How a fit is done, and why:
   win and follow the noise; prediction of unseen points does not reward that.
 - Lack of fit (fits.quality): structured residuals or chi-square far above expectation mark
   the fit as not describing the data and add a model-error term to its band.
+- Model choice as an uncertainty: every other candidate that scored as good as the chosen one
+  (VariantFit.alternatives) describes the data equally well, so the spread between them is
+  not known from the data. Its largest gap on a fine grid, taken as the half-width of a
+  rectangular distribution (/sqrt(3), JCGM 100 4.3.7), is added in quadrature to the
+  lack-of-fit term in model_error_F (stats.model_choice_F, stats.model_choice_rivals).
 - Valid range: the measured bias range. Nothing here extrapolates.
 - Curve.stats: the contract keys (r2, rms_pct_C0, max_resid_pct_C0, n_points, aic, bic; the
   percentages of C at the measured bias nearest 0 V) plus k_params, n_points_fit (both
   branches for a joint fit), chi2_red (dimensionless when weighted, the residual variance in
   F^2 when unweighted), covar_scale, weighting, variant, loo_rms (root mean square
-  leave-one-out residual, in units of sigma when weighted, farads when not), the lack-of-fit
-  statistics (describes_data, chi2_p, runs, runs_expected, runs_p, model_error_F), flat and,
+  leave-one-out residual of the scored points, in units of sigma when weighted, farads when not), the lack-of-fit
+  statistics (describes_data, chi2_p, runs, runs_expected, runs_p, model_error_F),
+  model_choice_F, model_choice_rivals, flat and,
   if any, held_at_bound.
 - Hysteresis: fit_branches fits the rising and falling branches. For the tanh model the two
   share C_inf, C_pk and V0 and each has its own V_off (5 parameters in one fit); the other
@@ -58,7 +65,7 @@ from fits.solver import SolveError, solve
 from fits.statistics import covariance_scale, information_criteria, residual_stats
 from fits.sweepdata import BIAS_GROUP_TOL_V, SweepData, check_sweep
 
-AUTO_MODELS = ("tanh", "genjohnson", "landau", "poly")
+AUTO_MODELS = ("tanh", "genjohnson", "landau", "poly", "spline")
 BRANCHES = ("rising", "falling")
 #: reciprocal condition number of the column-scaled weighted jacobian below which the
 #: parameters are taken as not determined by the data
@@ -108,16 +115,28 @@ class VariantFit:
     bic: float
     C_model_F: np.ndarray
     loo_scores: np.ndarray | None = None  # squared weighted leave-one-out residuals
+    scored: np.ndarray | None = None  # which points' scores count (_scored_points)
     joint: str | None = None  # description when fitted jointly with the other branch
     quality: dict = field(default_factory=dict)
+    #: other variants of the family that predict as well (_choose's "as good"): the data
+    #: cannot tell them from this one (their spread enters the band, _model_choice_F)
+    alternatives: list = field(default_factory=list)
 
     @property
     def dof(self) -> int:
         return self.n - self.k
 
     @property
+    def scored_loo(self) -> np.ndarray | None:
+        """The leave-one-out scores that count in the choice (the end points' do not)."""
+        if self.loo_scores is None or self.scored is None:
+            return self.loo_scores
+        return self.loo_scores[self.scored]
+
+    @property
     def loo(self) -> float:
-        return float(np.mean(self.loo_scores)) if self.loo_scores is not None else float("nan")
+        sc = self.scored_loo
+        return float(np.mean(sc)) if sc is not None else float("nan")
 
     @property
     def compact(self) -> bool:
@@ -215,15 +234,15 @@ def fit_sweep(bias_V, C_F, sigma_F=None, model="auto", branch: str | None = None
         raise FitError(f"{where}: " + "; ".join(skipped.values()))
     for f in fits_by_family.values():
         _assess(f, data)
-    order, table = _choose({n: f.loo_scores for n, f in fits_by_family.items()},
+    order, table = _choose({n: f.scored_loo for n, f in fits_by_family.items()},
                            {n: (f.compact, f.k, _is_flat(f), f.quality["describes_data"])
-                            for n, f in fits_by_family.items()})
+                            for n, f in fits_by_family.items()}, weighted=data.sigma_F is not None)
     if len(families) > 1 and "poly" in fits_by_family:
         order, table = _flat_first(fits_by_family, data, order, table)
     ranking = [(n, fits_by_family[n].loo, fits_by_family[n].bic) for n in order]
     chosen = order[0]
     vf = fits_by_family[chosen]
-    _finalise(vf, data)
+    _finalise(vf, data, _rivals(fits_by_family, order, table))
     curve = _curve_from(vf, data, meta)
     report = _report(branch, data, vf, curve, table, skipped, auto=len(families) > 1)
     return FitOutcome(curve, ranking, report, data, vf, fits_by_family, skipped, meta)
@@ -291,9 +310,9 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
             vf = per[b]
             _assess(vf, datas[b])
             k = vf.k * datas[b].n / vf.n if vf.joint else vf.k
-            scores[name] = vf.loo_scores
+            scores[name] = vf.scored_loo
             keys[name] = (vf.compact, k, _is_flat(vf), vf.quality["describes_data"])
-        order, table = _choose(scores, keys)
+        order, table = _choose(scores, keys, weighted=datas[b].sigma_F is not None)
         if len(families) > 1 and "poly" in results:
             per_b = {n: r[b] for n, r in results.items()}
             order, table = _flat_first(per_b, datas[b], order, table)
@@ -305,7 +324,7 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
         rankings[b] = ranking
         chosen = order[0]
         vf = results[chosen][b]
-        _finalise(vf, datas[b])
+        _finalise(vf, datas[b], _rivals({n: r[b] for n, r in results.items()}, order, table))
         bmeta = dict(meta, branch=b)
         curve = _curve_from(vf, datas[b], bmeta)
         report = _report(b, datas[b], vf, curve, table, skipped,
@@ -321,13 +340,17 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
 # choice by leave-one-out prediction
 
 
-def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple]):
+def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple], weighted: bool = False):
     """Order candidates. keys[name] = (compact, k free parameters, flat, describes data).
     The first is chosen among those as good as the best (within one standard error of the
     paired differences of their leave-one-out scores) and, if any candidate describes the
     data (fits.quality), among those that do: compact laws before others, then fewer
     parameters, then the flat line, then lower score. When none describes the data the
-    lowest score is chosen. The rest follow by score.
+    lowest score is chosen. The rest follow by score. weighted: the scores are in units of
+    sigma, so a law that only noise separates from the best scores about 1 a point; the
+    "at most _AS_GOOD_RATIO times the best" limit is then taken from max(best, 1), so a
+    flexible candidate that happens to predict this noise draw better than 1 cannot push the
+    law that generated the data out of the as-good set.
     Returns (order, table rows)."""
     names = list(scores)
     S = np.array([scores[n] for n in names])
@@ -340,11 +363,12 @@ def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple]):
               else np.zeros(len(names)))
     means = {n: float(mean[i]) for i, n in enumerate(names)}
     best = names[ib]
+    ref = max(float(mean[ib]), 1.0) if weighted else float(mean[ib])
     rows = {}
     for i, n in enumerate(names):
         rows[n] = {"name": n, "loo": means[n], "d_loo": float(d_mean[i]), "se": float(se[i]),
                    "as_good": bool(d_mean[i] <= _SE_RULE * se[i]
-                                   and mean[i] <= _AS_GOOD_RATIO * mean[ib]) or n == best, "compact": keys[n][0],
+                                   and mean[i] <= _AS_GOOD_RATIO * ref) or n == best, "compact": keys[n][0],
                    "k": keys[n][1]}
     good = [n for n in names if rows[n]["as_good"]]
     describing = [n for n in names if keys[n][3]]
@@ -379,8 +403,13 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
     families (leave-one-out score, simplest within one standard error); a polynomial whose
     curve turns between the points where the data do not is refused."""
     variants = spec.variants(data.bias_V, data.C_F)
-    if getattr(spec, "linear", False) and len(variants) > 1:
+    if not variants:
+        raise _CannotFit(f"{spec.name} needs readings at {getattr(spec, 'min_distinct', 2)} or more "
+                         f"bias values, got {data.n_distinct}")
+    if getattr(spec, "nested", False) and len(variants) > 1:
         return _fit_linear(_linear_choice(variants, data), data)
+    if hasattr(spec, "power_basis") and len(variants) > 1:
+        return _fit_linear(_spline_choice(variants, data), data)
     fits, reasons = [], []
     allowed = None
     start = None if getattr(spec, "linear", False) else spec.guess(
@@ -406,7 +435,7 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
                 allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
             grid = np.linspace(data.bias_V.min(), data.bias_V.max(), _GRID)
             tol = _turn_tol(data)
-            if quality.turns(vf.spec.C(grid, **vf.params), tol) > allowed:
+            if _wiggles(vf.spec.C(grid, **vf.params), grid, data, allowed, tol):
                 reasons.append(f"{variant.label}: turns between the points where the data "
                                "do not")
                 continue
@@ -418,10 +447,12 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
     by = {i: f for i, f in enumerate(fits)}
     for f in fits:
         _assess(f, data)
-    order, _ = _choose({i: f.loo_scores for i, f in by.items()},
-                       {i: (True, f.k, len(f.held), f.quality["describes_data"])
-                        for i, f in by.items()})
-    return by[order[0]]
+    order, table = _choose({i: f.scored_loo for i, f in by.items()},
+                           {i: (True, f.k, len(f.held), f.quality["describes_data"])
+                            for i, f in by.items()}, weighted=data.sigma_F is not None)
+    chosen = by[order[0]]
+    chosen.alternatives = _rivals(by, order, table)
+    return chosen
 
 
 #: a weighted sweep is flat within noise when the flat line passes both lack-of-fit tests at
@@ -548,7 +579,8 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
     residuals of _linear_loo (no full fit per variant): the best by _choose whose curve does
     not turn where the data do not."""
     loo = _linear_loo(variants, data)
-    scores = {i: sc for i, (sc, _) in loo.items()}
+    scored = _scored_points(data.bias_V)
+    scores = {i: sc[scored] for i, (sc, _) in loo.items()}
     coefs = {i: c for i, (_, c) in loo.items()}
     keys = {i: (True, len(variants[i].spec.powers), 0, True) for i in loo}
     x = data.bias_V / float(variants[0].fixed["V_scale_V"])
@@ -558,7 +590,7 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
     grid = np.linspace(x.min(), x.max(), _GRID)
     tol = _turn_tol(data)
     while True:
-        order, _ = _choose(scores, keys)
+        order, _ = _choose(scores, keys, weighted=data.sigma_F is not None)
         i = order[0]
         if len(scores) == 1 or variants[i].spec.degree == 0:
             return variants[i]
@@ -566,9 +598,79 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
             allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
         dense = np.zeros(variants[i].spec.degree + 1)
         dense[list(variants[i].spec.powers)] = coefs[i]
-        if quality.turns(np.polynomial.polynomial.polyval(grid, dense), tol) <= allowed:
+        Vs = float(variants[0].fixed["V_scale_V"])
+        if not _wiggles(np.polynomial.polynomial.polyval(grid, dense), grid * Vs, data,
+                        allowed, tol):
             return variants[i]
         del scores[i], keys[i]  # turns between the points where the data do not
+
+
+def _spline_choice(variants: list[Variant], data: SweepData) -> Variant:
+    """The regression-spline knot count chosen as _linear_choice chooses a degree: exact
+    leave-one-out residuals per knot count from a QR of its (cheap, equivalent) power basis,
+    the best by _choose whose curve does not turn where the data do not."""
+    w = data.weights
+    yw = data.C_F * w
+    typical = float(np.sqrt(np.mean(yw**2)))
+    scored = _scored_points(data.bias_V)
+    grid = np.linspace(data.bias_V.min(), data.bias_V.max(), _GRID)
+    scores, keys, curves = {}, {}, {}
+    for i, v in enumerate(variants):
+        spec = v.spec
+        knots = np.array([float(v.fixed[f"V{j}_V"]) for j in range(spec.n_points)])
+        k = spec.n_points
+        if data.n <= k or data.n_distinct < k:
+            continue
+        X = spec.power_basis(data.bias_V, knots)
+        norms = np.linalg.norm(X * w[:, None], axis=0)
+        Qn, Rn = np.linalg.qr(X * w[:, None] / norms)
+        d = np.abs(np.diag(Rn))
+        if d.min() < _MIN_RCOND * d.max():
+            continue
+        qb = Qn.T @ yw
+        h = np.sum(Qn * Qn, axis=1)
+        r = yw - Qn @ qb
+        with np.errstate(divide="ignore", invalid="ignore"):
+            e = np.where(h < 1.0 - 1e-9, r / (1.0 - h), np.inf)
+        scores[i] = np.maximum(e * e, (_LOO_FLOOR_REL * typical) ** 2)[scored]
+        keys[i] = (True, k, 0, True)
+        coef = solve_triangular(Rn, qb) / norms
+        curves[i] = (knots, coef)
+    if not scores:
+        return variants[0]
+    allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
+    tol = _turn_tol(data)
+    while True:
+        order, _ = _choose(scores, keys, weighted=data.sigma_F is not None)
+        i = order[0]
+        knots, coef = curves[i]
+        if len(scores) == 1 or not _wiggles(variants[i].spec.power_basis(grid, knots) @ coef,
+                                            grid, data, allowed, tol):
+            return variants[i]
+        del scores[i], keys[i]  # turns between the points where the data do not
+
+
+def _wiggles(C_grid, grid_V, data: SweepData, allowed: int, tol: float) -> bool:
+    """True when a candidate's curve (on the fine grid grid_V) turns where the data do not:
+    more turns than the data show (allowed), except one more inside the interval between
+    the reading nearest 0 V and the next one when that end is an end of the sweep. A
+    hysteretic branch peaks at its coercive bias, just off 0 V, often before the first step,
+    where the readings either side cannot show it (the compact laws place that peak too,
+    with V_pk); anywhere else an extremum the data do not show is a wiggle."""
+    total = quality.turns(C_grid, tol)
+    if total <= allowed:
+        return False
+    distinct = np.unique(data.bias_V)
+    if total > allowed + 1 or distinct.size < 3:
+        return True
+    i0 = int(np.argmin(np.abs(distinct)))
+    if i0 == 0:
+        rest = grid_V >= distinct[1]
+    elif i0 == distinct.size - 1:
+        rest = grid_V <= distinct[-2]
+    else:
+        return True  # 0 V inside a bipolar sweep: a peak there is one the data show
+    return quality.turns(np.asarray(C_grid)[rest], tol) > allowed
 
 
 def _turn_tol(data: SweepData) -> float:
@@ -647,9 +749,9 @@ def _fit_variant(variant: Variant, data: SweepData, start: Mapping | None = None
         spec.check_params(values)  # e.g. a peak capacitance that ran onto 0
     except ValueError as exc:
         raise _CannotFit(f"{variant.label}: the fit ended on an unphysical value ({exc})") from None
-    J = spec.jacobian(V, values)
     free_idx = [names.index(n) for n in free]
-    return _finish(variant.label, spec, values, J[:, free_idx], free_idx, tuple(free),
+    return _finish(variant.label, spec, values, spec.jacobian_of(V, values, free), free_idx,
+                   tuple(free),
                    tuple(held), data, spec.C(V, **values))
 
 
@@ -657,9 +759,14 @@ def _fit_linear(variant: Variant, data: SweepData) -> VariantFit:
     """Exact weighted linear least squares for a model linear in its free parameters."""
     spec = variant.spec
     free = list(variant.free_names)
-    start = dict(spec.guess(data.bias_V, data.C_F), **variant.fixed)
+    # linear in the free parameters: the jacobian does not depend on their values, so no
+    # guess is needed unless the variant leaves a parameter neither free nor fixed
+    start = {n: 0.0 for n in free}
+    start.update(variant.fixed)
+    if set(start) != set(spec.param_names):
+        start = dict(spec.guess(data.bias_V, data.C_F), **variant.fixed)
     idx = [spec.param_names.index(n) for n in free]
-    A = spec.jacobian(data.bias_V, start)[:, idx]
+    A = spec.jacobian_of(data.bias_V, start, free)
     w = data.weights
     coef, *_ = np.linalg.lstsq(A * w[:, None], data.C_F * w, rcond=None)
     values = dict(start)
@@ -681,6 +788,24 @@ def _unscaled_covariance(J_free: np.ndarray, w: np.ndarray, label: str) -> np.nd
                          "(their effects on C(V) cannot be told apart)")
     inv = (Vt.T / s**2) @ Vt
     return inv / np.outer(norms, norms)
+
+
+#: the end points' leave-one-out scores count only when fewer than this many points lie inside
+_MIN_SCORED = 4
+
+
+def _scored_points(V) -> np.ndarray:
+    """Which points' leave-one-out scores the choice counts: those strictly inside the bias
+    range. Leaving out an end point asks a candidate to extrapolate, and no curve here is
+    ever used outside its measured range (Curve.valid_range_V), so how a law runs on beyond
+    the last point says nothing about how well it interpolates; counted, those two scores
+    (the largest, often by far) decided the choice for the law that extrapolates most
+    tamely, not for the one that follows the curve (the falling branch with its turning
+    point: tests/sweep/test_fit_against_truth.py). The end points still weigh in every fit.
+    With fewer than _MIN_SCORED interior points every point counts."""
+    V = np.asarray(V, dtype=float)
+    inside = (V > V.min() + BIAS_GROUP_TOL_V) & (V < V.max() - BIAS_GROUP_TOL_V)
+    return inside if int(inside.sum()) >= _MIN_SCORED else np.ones(V.shape, dtype=bool)
 
 
 def _loo_scores(J_free, w, resid_w, cov_u, typical) -> np.ndarray:
@@ -707,7 +832,8 @@ def _finish(label, spec, values, J_free, free_idx, free, held, data, C_model) ->
     cov = np.zeros((K, K))
     cov[np.ix_(free_idx, free_idx)] = cov_u * scale
     return VariantFit(label, spec, values, cov, free, held, chi2, n, k, chi2_red, scale, aic,
-                      bic, C_model, _loo_scores(J_free, w, rw, cov_u, typical))
+                      bic, C_model, _loo_scores(J_free, w, rw, cov_u, typical),
+                      _scored_points(data.bias_V))
 
 
 def _assess(vf: VariantFit, data: SweepData) -> None:
@@ -720,15 +846,51 @@ def _assess(vf: VariantFit, data: SweepData) -> None:
     vf.quality = q
 
 
-def _finalise(vf: VariantFit, data: SweepData) -> None:
-    """The chosen fit: its lack-of-fit tests and, when its law does not describe the data,
-    the model-error term of its band."""
+def _rivals(fits: Mapping, order, table) -> list[VariantFit]:
+    """The fits _choose found as good as the chosen one (order[0]) and, when the chosen one
+    describes the data, describing them too; with their own as-good variants."""
+    first = fits[order[0]]
+    out = []
+    for row in table[1:]:
+        f = fits.get(row["name"])
+        if f is None or f is first or not row["as_good"]:
+            continue
+        if first.quality.get("describes_data", True) and not f.quality.get("describes_data", True):
+            continue
+        out += [f] + [a for a in f.alternatives if a is not first]
+    return out
+
+
+def _model_choice_F(vf: VariantFit, data: SweepData, rivals) -> float:
+    """Standard uncertainty of the choice between laws the data cannot tell apart: the
+    largest |C_rival - C_chosen| over the measured range (a fine grid) as the half-width of
+    a rectangular distribution, u = a/sqrt(3) (JCGM 100:2008 4.3.7). Two laws that predict
+    the unseen points equally well can still part between the points; the band then spans
+    both instead of trusting the one the tie-break picked."""
+    if not rivals:
+        return 0.0
+    grid = np.linspace(float(data.bias_V.min()), float(data.bias_V.max()), _GRID)
+    C = vf.spec.C(grid, **vf.params)
+    a = max(float(np.max(np.abs(r.spec.C(grid, **r.params) - C))) for r in rivals)
+    return a / np.sqrt(3.0) if np.isfinite(a) else 0.0
+
+
+def _finalise(vf: VariantFit, data: SweepData, rivals=()) -> None:
+    """The chosen fit: its lack-of-fit tests and its band's model-error term: when its law
+    does not describe the data, the excess scatter (fits.quality.model_error); when other laws
+    or variants predict as well, their spread (_model_choice_F); both in quadrature."""
     _assess(vf, data)
-    if not vf.quality["describes_data"] and "model_error_F" not in vf.quality:
+    if "model_error_F" in vf.quality:
+        return
+    lack = 0.0
+    if not vf.quality["describes_data"]:
         dof = data.n - (vf.k * data.n / vf.n if vf.joint else vf.k)
-        vf.quality["model_error_F"] = quality.model_error(data.C_F - vf.C_model_F,
-                                                          data.sigma_F, int(round(dof)))
-    vf.quality.setdefault("model_error_F", 0.0)
+        lack = quality.model_error(data.C_F - vf.C_model_F, data.sigma_F, int(round(dof)))
+    choice = _model_choice_F(vf, data, list(rivals) + list(vf.alternatives))
+    vf.quality["model_choice_F"] = choice
+    vf.quality["model_choice_rivals"] = sorted({r.label for r in
+                                                list(rivals) + list(vf.alternatives)})
+    vf.quality["model_error_F"] = float(np.hypot(lack, choice))
 
 
 # ---------------------------------------------------------------------------------------
@@ -817,7 +979,7 @@ def _fit_tanh_shared(rising: SweepData, falling: SweepData) -> dict[str, Variant
         out[b] = VariantFit(
             label, spec, {n: float(p[n]) for n in spec.param_names},
             cov_joint[np.ix_(sel, sel)], own(free_joint, b), own(held, b), chi2, n_total, k,
-            chi2_red, scale, aic, bic, C_models[b], loo[rows],
+            chi2_red, scale, aic, bic, C_models[b], loo[rows], _scored_points(Vs[b]),
             joint="rising and falling fitted together: C_inf_F, C_pk_F, V0_V shared, "
                   "V_off_V per branch")
     return out

@@ -4,7 +4,7 @@
     spec = models.get("tanh")            # or get("poly", degree=4, even=True)
     spec.C(V, **params); spec.Q(V, **params); spec.spice_charge(params, "V(a,b)")
     f, free = spec.as_positional(fixed)  # for scipy.optimize.curve_fit(f, V, C, p0=...)
-    models.names()    # ['genjohnson', 'landau', 'poly', 'table', 'tanh']
+    models.names()    # ['genjohnson', 'landau', 'poly', 'spline', 'table', 'tanh']
 
 A new model is one module with a ModelSpec subclass and one register() call below.
 """
@@ -16,6 +16,7 @@ from fits.models.base import ModelSpec, Variant
 from fits.models.genjohnson import GenJohnsonModel
 from fits.models.landau import LandauModel
 from fits.models.poly import PolyModel
+from fits.models.spline import SplineModel
 from fits.models.table import TableModel
 from fits.models.tanh import TanhModel
 
@@ -46,7 +47,8 @@ def names() -> list[str]:
     return sorted(_REGISTRY)
 
 
-for _spec in (TanhModel(), PolyModel(), LandauModel(), GenJohnsonModel(), TableModel()):
+for _spec in (TanhModel(), PolyModel(), LandauModel(), GenJohnsonModel(), SplineModel(),
+              TableModel()):
     register(_spec)
 
 __all__ = ["ModelSpec", "Variant", "register", "get", "names"]

@@ -126,6 +126,13 @@ class ModelSpec:
             total = total + w * v * self.C(v, **params)
         return total * V / 2.0
 
+    def jacobian_of(self, V, params: Mapping[str, float], names) -> np.ndarray:
+        """dC/dp for the named parameters only, columns in that order: a fit needs only its
+        free columns and a band only those with a variance, and some models have costly
+        columns no fit frees (the regression spline's knot biases)."""
+        idx = [self.param_names.index(n) for n in names]
+        return self.jacobian(V, params)[:, idx]
+
     def jacobian(self, V, params: Mapping[str, float]) -> np.ndarray:
         """dC/dp for each parameter, shape (len(V), len(param_names)); central differences.
 

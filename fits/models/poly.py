@@ -39,6 +39,7 @@ class PolyModel(ModelSpec):
     title = "polynomial in x = V/V_scale"
     analytic_jacobian = True
     linear = True  # C is linear in the coefficients (V_scale_V is fixed)
+    nested = True  # its variants are nested column sets (fits.fitting._linear_loo)
 
     def __init__(self, powers=None, max_degree: int = MAX_DEGREE):
         # powers=None: the degree is chosen by the data; param_names shows the cubic then

@@ -20,7 +20,7 @@ C = 10e-6 / (1 + (V / 2) ** 2) ** (1 / 3)
     ((V, np.where(V == V[0], 0.0, C)), {}, "is not positive"),
     ((V, C[:-1]), {}, "8 bias values but 7 capacitance values"),
     ((V, C, np.zeros(8)), {}, r"sigma_F\[0\] = 0.0 must be a positive number"),
-    ((V, C), {"model": "spline"}, "no model named 'spline'"),
+    ((V, C), {"model": "nonesuch"}, "no model named 'nonesuch'"),
     (([], []), {}, "no points"),
     ((V, C), {"branch": "up"}, "branch must be"),
 ])

@@ -22,6 +22,8 @@ PARAMS = {
     "poly": dict(V_scale_V=6.0, a0_F=5e-6, a1_F=-1e-6, a2_F=-2e-6, a3_F=0.5e-6),
     "table": dict(V0_V=-1.0, V1_V=0.0, V2_V=2.0, V3_V=5.0,
                   C0_F=3e-6, C1_F=5e-6, C2_F=3e-6, C3_F=1e-6),
+    "spline": dict(V0_V=-1.0, V1_V=0.0, V2_V=1.5, V3_V=3.5, V4_V=5.0,
+                   C0_F=3e-6, C1_F=5e-6, C2_F=4e-6, C3_F=2e-6, C4_F=1e-6),
 }
 BIASES = [-0.9, -0.3, 0.25, 1.0, 2.7, 4.9]
 
@@ -31,7 +33,7 @@ def spec_of(name):
 
 
 def test_registry_names_and_lookup():
-    assert models.names() == ["genjohnson", "landau", "poly", "table", "tanh"]
+    assert models.names() == ["genjohnson", "landau", "poly", "spline", "table", "tanh"]
     with pytest.raises(KeyError, match="known models"):
         models.get("nonesuch")
     with pytest.raises(ValueError, match="already registered"):

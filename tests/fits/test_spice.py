@@ -24,6 +24,8 @@ PARAMS = {
     "poly": dict(V_scale_V=6.0, a0_F=5e-6, a1_F=-1e-6, a2_F=-2e-6, a3_F=0.5e-6),
     "table": dict(V0_V=-1.0, V1_V=0.0, V2_V=2.0, V3_V=5.0,
                   C0_F=3e-6, C1_F=5e-6, C2_F=3e-6, C3_F=1e-6),
+    "spline": dict(V0_V=-1.0, V1_V=0.0, V2_V=1.5, V3_V=3.5, V4_V=5.0,
+                   C0_F=3e-6, C1_F=5e-6, C2_F=4e-6, C3_F=2e-6, C4_F=1e-6),
 }
 
 
@@ -109,13 +111,14 @@ quit
     data = np.loadtxt(tmp_path / "q.txt")
     V, Q_spice = data[:, 0], data[:, 1] * 1e-6
     Q_ref = spec.Q(V, **p)
-    if name == "table":
+    if name in ("table", "spline"):
         # beyond the table the netlist holds C at the end values (documented in table.py):
         # Q continues linearly from the end points
-        lo, hi = p["V0_V"], p["V3_V"]
+        last = spec.n_points - 1
+        lo, hi = p["V0_V"], p[f"V{last}_V"]
         Q_lo, Q_hi = float(spec.Q(lo, **p)), float(spec.Q(hi, **p))
         Q_ref = np.where(V < lo, Q_lo + p["C0_F"] * (V - lo), Q_ref)
-        Q_ref = np.where(V > hi, Q_hi + p["C3_F"] * (V - hi), Q_ref)
+        Q_ref = np.where(V > hi, Q_hi + p[f"C{last}_F"] * (V - hi), Q_ref)
         assert np.any(V < lo) and np.any(V > hi)
     np.testing.assert_allclose(Q_spice, Q_ref, rtol=0, atol=1e-9 * np.max(np.abs(Q_ref)))
 
