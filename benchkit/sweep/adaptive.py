@@ -284,10 +284,16 @@ class LoopPlanner:
         return self._record(PassPlan(index, pts, None, status, self.remanent_V))
 
     def _stalled(self, status, failing) -> bool:
-        """The worst failing band is not MIN_PASS_GAIN narrower than after the pass before."""
+        """The worst failing band is not MIN_PASS_GAIN narrower than after the pass before,
+        among the branches that failed then too: a branch the last pass's points showed to be
+        less certain than its earlier fit claimed is new work, not a stall."""
         prev = self.history[-1].status if self.history else {}
-        now = max(status[b].band_pct_of_C0 for b in failing)
-        before = max((prev[b].band_pct_of_C0 for b in failing if b in prev), default=math.inf)
+        target = self.s.target_band_pct_of_C0
+        again = [b for b in failing if b in prev and not prev[b].band_pct_of_C0 <= target]
+        if not again:
+            return False
+        now = max(status[b].band_pct_of_C0 for b in again)
+        before = max(prev[b].band_pct_of_C0 for b in again)
         return math.isfinite(before) and now > (1.0 - MIN_PASS_GAIN) * before
 
     @property
