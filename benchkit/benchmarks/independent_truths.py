@@ -101,6 +101,40 @@ def run_cases(seeds=range(10), families=None, model="auto") -> list[dict]:
     return rows
 
 
+#: laws that ARE models of fits, fitted with themselves under the same protocol: what 11
+#: points at 0.3 % noise can support at best (values invented for the check; the peak sits
+#: between the first two points, as on the hysteretic branches above)
+EXACT_LAWS = {
+    "tanh": dict(C_inf_F=1.0e-6, C_pk_F=10e-6, V0_V=6.0, V_off_V=0.9),
+    "genjohnson": dict(C_pk_F=4.7e-6, C_fl_F=0.5e-6, V_w_V=7.0, m=1.0, V_pk_V=0.8),
+}
+
+
+def exact_law_floor(seeds=range(10)) -> dict:
+    """Fit each EXACT_LAWS sweep with its own generating law (no choice, no misfit): the
+    worst error and the share of fits beyond 0.5 % of C0 that the noise alone causes."""
+    from fits import fit_sweep, models
+
+    out = {}
+    V = np.linspace(0.0, TOP_V, N_PER_BRANCH)
+    grid = np.linspace(0.0, TOP_V, GRID)
+    for name, p in EXACT_LAWS.items():
+        spec = models.get(name)
+        C_true, t = spec.C(V, **p), spec.C(grid, **p)
+        errs, cover = [], []
+        for seed in seeds:
+            rng = np.random.default_rng(seed)
+            sigma = NOISE * C_true
+            c = fit_sweep(V, C_true + rng.normal(size=V.size) * sigma, sigma, model=name).curve
+            e = np.abs(c.C(grid) - t)
+            errs.append(float(100.0 * e.max() / t[0]))
+            cover.append(float(np.mean(e <= K_BAND * c.u_C(grid))))
+        out[name] = {"fits": len(errs), "worst_err_pct_C0": max(errs),
+                     "share_over_half_pct": float(np.mean(np.array(errs) > 0.5)),
+                     "mean_coverage": float(np.mean(cover))}
+    return out
+
+
 def summary(rows) -> dict:
     out = {}
     for fam in dict.fromkeys(r["family"] for r in rows):
@@ -124,7 +158,18 @@ def run(out_dir=None, quick: bool = False, log=print) -> dict:
         log(f"independent truth {fam}: {s['fits']} fits, worst {s['worst_err_pct_C0']:.3f} % "
             f"of C0, band covers >= {100 * s['min_coverage']:.1f} % of the grid, models "
             f"{s['models']}, lack of fit said {s['said_lack_of_fit']}x")
-    return {"what": f"auto fits of {N_PER_BRANCH}-point branches at {100 * NOISE:g} % noise on "
+    floor = exact_law_floor(seeds if quick else range(40))
+    for name, f in floor.items():
+        log(f"exact-law floor {name}: fitted with itself, {f['fits']} fits, worst "
+            f"{f['worst_err_pct_C0']:.3f} % of C0, {100 * f['share_over_half_pct']:.0f} % of fits "
+            f"beyond 0.5 %, band covers {100 * f['mean_coverage']:.1f} % of the grid on average")
+    every = [r["coverage"] for r in rows]
+    log(f"independent truths: {sum(r['max_err_pct_C0'] > 0.5 for r in rows)} of {len(rows)} fits "
+        f"beyond 0.5 % of C0; band covers {100 * float(np.mean(every)):.1f} % of all grid points")
+    return {"exact_law_floor": floor,
+            "share_over_half_pct": float(np.mean([r["max_err_pct_C0"] > 0.5 for r in rows])),
+            "mean_coverage": float(np.mean(every)),
+            "what": f"auto fits of {N_PER_BRANCH}-point branches at {100 * NOISE:g} % noise on "
                     "four shape families that are none of the models; worst |fit - truth| "
                     "and k = 2 band coverage over a fine grid of the measured range",
             "n_per_branch": N_PER_BRANCH, "noise_frac": NOISE, "seeds": len(seeds),
