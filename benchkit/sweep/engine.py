@@ -65,7 +65,7 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
                      "thermometer": inst.thermometer}
         if chamber is not None:
             self._raw["chamber"] = chamber
-        self._links = self._link_counts()
+        self._watch_links()
 
     def t_s(self) -> float:
         return self.t_offset + (self.clock.now() - self.t0)

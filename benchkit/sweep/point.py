@@ -12,8 +12,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
 from benchkit.sweep.plan import Plan, PlannedPoint, SampleSweep
 from benchkit.sweep.readings import check_point, level_flags, may_use
 from benchkit.sweep.runlog import join_flags, utc_now
@@ -68,21 +66,26 @@ class PointMeasurement:
         if self._note_recoveries():
             flags.append("retried")
         flags += list(getattr(settle, "flags", ()))  # e.g. max_dwell from settle detection
-        arr = np.array(values) if values else np.empty((0, 3))
-        C = float(arr[:, 0].mean()) if len(arr) else None
-        C_std = float(arr[:, 0].std(ddof=1)) if len(arr) >= 2 else None
-        if len(arr):   # believed only if it can be this part (stops the run if not)
-            secondary = arr[:, 2] if cond.function == "CSRS" else arr[:, 1]
-            flags += check_point(self._expected, p.bias_V, C, float(arr[:, 1].mean()),
-                                 float(secondary.mean()), cond.function,
+        # a point has a few readings: plain floats (math.fsum) cost less than arrays here
+        n = len(values)
+        Cs, Ds, Rss = (list(col) for col in zip(*values)) if n else ([], [], [])
+        C = _mean(Cs) if n else None
+        C_std = _stdev(Cs) if n >= 2 else None
+        D_mean = _mean(Ds) if n else None
+        Rs_mean = _mean(Rss) if n else None
+        if n:   # believed only if it can be this part (stops the run if not)
+            secondary = Rs_mean if cond.function == "CSRS" else D_mean
+            flags += check_point(self._expected, p.bias_V, C, D_mean, secondary, cond.function,
                                  getattr(getattr(self._raw["meter"], "profile", None), "name", "?"),
                                  at_standard=ac_dut is not None and not off_level)
-        if pred is not None and len(arr):
-            C, C_std = pred.C_inf_F, pred.u_C_inf_F * math.sqrt(len(arr))
+        if pred is not None and n:
+            C, C_std = pred.C_inf_F, pred.u_C_inf_F * math.sqrt(n)
             flags.append("predicted")
         drift = None
-        if len(arr) >= 2 and times[-1] > times[0] and C:
-            slope = np.polyfit(np.array(times) - times[0], arr[:, 0], 1)[0]
+        if n >= 2 and times[-1] > times[0] and C:
+            t_mean = _mean(times)  # least-squares slope about the mean time
+            dt = [t - t_mean for t in times]
+            slope = math.fsum(d * c for d, c in zip(dt, Cs)) / math.fsum(d * d for d in dt)
             drift = float(100.0 * slope / C)
         return {
             "run_id": self.log.meta["run_id"],
@@ -101,9 +104,9 @@ class PointMeasurement:
             "ac_level_dut_Vrms": None if ac_dut is None else float(ac_dut),
             "C_F": C,
             "C_std_F": C_std,
-            "D": float(arr[:, 1].mean()) if len(arr) else None,
-            "Rs_ohm": float(arr[:, 2].mean()) if len(arr) else None,
-            "n_readings": len(arr),
+            "D": D_mean,
+            "Rs_ohm": Rs_mean,
+            "n_readings": n,
             "temp_C": float(temp),
             "t_s": self.t_offset + (t_first - self.t0),
             "dwell_s": self.policy.dwell_s,
@@ -126,6 +129,16 @@ class PointMeasurement:
         self._dwell_readings.append((self.clock.now(), v))
         return v[0]
 
+
+
+def _mean(xs) -> float:
+    return math.fsum(xs) / len(xs)
+
+
+def _stdev(xs) -> float:
+    """Sample standard deviation (n - 1 in the denominator), two-pass."""
+    m = _mean(xs)
+    return math.sqrt(math.fsum((x - m) ** 2 for x in xs) / (len(xs) - 1))
 
 
 def _in_current_limit(set_V: float, meas_V: float, meas_A: float, plan: Plan) -> bool:

@@ -9,18 +9,33 @@ class LinkRecoveries:
 
     RETRY_COUNTERS = ("timeouts", "garbled", "link_errors", "reconnects")
 
-    def _link_counts(self) -> dict:
-        out = {}
-        seen: set[int] = set()
+    def _link_sessions(self) -> dict:
+        """role -> its link session, each link once (the meter's internal bias shares the
+        meter's link: counted once)."""
+        out, seen = {}, set()
         for role, drv in self._raw.items():
             session = getattr(drv, "session", None)
             if session is not None and id(session) in seen:
-                continue   # the meter's internal bias shares the meter's link: count it once
+                continue
             seen.add(id(session))
-            counters = getattr(session, "counters", None)
-            if counters is not None:
-                out[role] = (dict(counters), list(getattr(session, "events", ())))
+            if getattr(session, "counters", None) is not None:
+                out[role] = session
         return out
+
+    def _link_counts(self) -> dict:
+        return {role: (dict(s.counters), list(getattr(s, "events", ())))
+                for role, s in self._link_sessions().items()}
+
+    def _watch_links(self) -> None:
+        """The state _note_recoveries compares against: taken once the links are open."""
+        self._sessions = list(self._link_sessions().values())
+        self._links = self._link_counts()
+        self._retries_seen = self._retry_total()
+
+    def _retry_total(self) -> int:
+        """The sum of every link's retry counters: unchanged means nothing to note (looked
+        at several times a point, so kept to a few lookups)."""
+        return sum(s.counters.get(k, 0) for s in self._sessions for k in self.RETRY_COUNTERS)
 
     def _note_recoveries(self) -> bool:
         """Log what each link recovered from since the last look (event link_recovered).
@@ -28,6 +43,10 @@ class LinkRecoveries:
         After the supply's link was reopened its output must still be on: a supply that
         restarted comes back with its output off, and measuring on would log 0 V points.
         """
+        total = self._retry_total()
+        if total == self._retries_seen:
+            return False  # no link retried since the last look
+        self._retries_seen = total
         now = self._link_counts()
         seen = False
         for role, (counts, events) in now.items():

@@ -97,13 +97,17 @@ def run_sweep(
                                "confirmed_by": consent}
         meta["summary"] = summary_record(plan, sweeps, above)
         log = RunLog.create(out_dir, meta)
-        log.flag_samples = {sid: ("above_rated",) for sid in above}
-        log.event(0.0, "start", points_planned=meta["n_points_planned"])
-        log.save()
-        _say_summary(progress, plan, sweeps, above)
-        if before_output is not None:
-            before_output()
-        return _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, [], wait_s)
+        try:  # the run directory's lock and row-sync thread are let go however the run ends
+            log.flag_samples = {sid: ("above_rated",) for sid in above}
+            log.event(0.0, "start", points_planned=meta["n_points_planned"])
+            log.save()
+            _say_summary(progress, plan, sweeps, above)
+            if before_output is not None:
+                before_output()
+            return _execute(inst, sweeps, plan, log, clock, progress, handle_signals, src, [],
+                            wait_s)
+        finally:
+            log.close()
 
 
 def resume_sweep(

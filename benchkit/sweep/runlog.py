@@ -1,7 +1,12 @@
 """The run directory: points.csv that survives a crash, and run.json that says what happened.
 
-Every point is flushed and fsync'ed before the next bias step, so a power cut or kill -9
-loses at most the point in progress (a trailing partial line, dropped on resume). run.json is
+Every point's row goes straight to the kernel (os.write, no buffer of ours) before the next
+bias step, so a crash or kill -9 of benchkit loses at most the point in progress (a trailing
+partial line, dropped on resume). Its fsync runs in a thread of its own while the next point
+is measured (the disk's wait overlaps the instruments'); the next row is written, and run.json
+replaced, only once that fsync has confirmed, so a power cut loses at most the point in
+progress and, when it falls within the milliseconds of that fsync, the row saved just before.
+A failed fsync cuts its row off again and stops the run at the next row or run.json update. run.json is
 replaced atomically at the start (status running), on every status change and at the end
 (complete with the sha256 of points.csv, or aborted with the reason). The columns are the
 interface with the fitting and verification code (DEVELOPERS.md, "File formats": run directory).
@@ -22,6 +27,7 @@ import io
 import json
 import math
 import os
+from concurrent.futures import ThreadPoolExecutor
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Iterable, Mapping
@@ -46,6 +52,8 @@ COLUMNS = (
     "ac_level_set_Vrms", "ac_level_dut_Vrms", "C_F", "C_std_F", "D", "Rs_ohm", "n_readings",
     "temp_C", "t_s", "dwell_s", "settle_s", "drift_pct_per_s", "flags", "utc",
 )
+
+_COLUMN_SET = frozenset(COLUMNS)
 
 # The one list of words the flags column may hold (";"-joined in a row).
 FLAGS = {
@@ -116,7 +124,7 @@ def format_value(v: Any) -> str:
 
 def row_line(row: Mapping[str, Any]) -> str:
     missing = [c for c in COLUMNS if c not in row]
-    extra = [k for k in row if k not in COLUMNS]
+    extra = [k for k in row if k not in _COLUMN_SET]
     if missing or extra:
         raise ValueError(f"points row: missing {missing}, unknown {extra}")
     buf = io.StringIO()
@@ -348,6 +356,8 @@ class RunLog:
         self._prev = chain_start(str(meta.get("run_id"))) if chain_prev is None else chain_prev
         self.rows = rows  # rows already in points.csv before this session (StoredRows on resume)
         self.flag_samples: dict[str, tuple[str, ...]] = {}  # flags every row of a sample carries
+        self._syncer: ThreadPoolExecutor | None = None  # the one thread that fsyncs rows
+        self._pending = None  # (row start, digest start, digest before, future) of the last row
 
     # -- opening -------------------------------------------------------------
     @classmethod
@@ -357,7 +367,7 @@ class RunLog:
         if d.exists() and (not d.is_dir() or any(d.iterdir())):
             raise UserError(f"{d}: already exists and is not empty; choose a new --out, or --resume {d}")
         created = not d.exists()
-        fh = cfh = lock = None
+        fh = cfh = lock = log = None
         try:
             d.mkdir(parents=True, exist_ok=True)
             fh = open(d / POINTS_FILE, "a+", encoding="utf-8", newline="")
@@ -369,6 +379,8 @@ class RunLog:
             log.save()
         except (OSError, RunFileError) as exc:
             # nothing half written: take back what was made, then one line for the operator
+            if log is not None and log._syncer is not None:
+                log._syncer.shutdown(wait=True)
             if cfh is not None:
                 cfh.close()
             if fh is not None:
@@ -466,8 +478,10 @@ class RunLog:
         self._append_bytes(row_line(row).encode("utf-8"))
 
     def _append_bytes(self, data: bytes) -> None:
-        """Write straight to the file (no buffer that could be flushed half later), fsync;
-        on failure cut the file back, so it holds whole confirmed rows only."""
+        """Write straight to the file (no buffer that could be flushed half later) once the
+        row before is confirmed on disk; its own fsync then runs in the background (sync()).
+        On failure cut the file back, so it holds whole confirmed rows only."""
+        self.sync()
         fd = self._fh.fileno()
         start = os.lseek(fd, 0, os.SEEK_END)
         cfd = self._chain.fileno() if self._chain is not None else None
@@ -477,18 +491,38 @@ class RunLog:
             _write_all(fd, data)
             if cfd is not None:
                 _write_all(cfd, digest.hex().encode("ascii") + b"\n")
-            os.fsync(fd)
-            if cfd is not None:
-                os.fsync(cfd)
         except OSError as exc:
-            for f, at in ((fd, start), (cfd, cstart)):
-                if f is not None:
-                    try:
-                        os.ftruncate(f, at)
-                    except OSError:
-                        pass  # a partial last line is dropped when the run is resumed
+            self._cut_back(fd, start, cfd, cstart)
             raise RunFileError(_write_problem(self.dir / POINTS_FILE, exc)) from None
+        if self._syncer is None:
+            self._syncer = ThreadPoolExecutor(max_workers=1, thread_name_prefix="benchkit-rowsync")
+        self._pending = (start, cstart, self._prev, self._syncer.submit(_fsync_all, fd, cfd))
         self._prev = digest
+
+    def sync(self) -> None:
+        """Wait until the last row written is on disk (fsync confirmed); RunFileError, with
+        that row cut off again, if it could not be."""
+        pending, self._pending = self._pending, None
+        if pending is None:
+            return
+        start, cstart, prev, done = pending
+        try:
+            done.result()
+        except OSError as exc:
+            fd = self._fh.fileno()
+            cfd = self._chain.fileno() if self._chain is not None else None
+            self._cut_back(fd, start, cfd, cstart)
+            self._prev = prev
+            raise RunFileError(_write_problem(self.dir / POINTS_FILE, exc)) from None
+
+    @staticmethod
+    def _cut_back(fd, start, cfd, cstart) -> None:
+        for f, at in ((fd, start), (cfd, cstart)):
+            if f is not None:
+                try:
+                    os.ftruncate(f, at)
+                except OSError:
+                    pass  # a partial last line is dropped when the run is resumed
 
     def event(self, t_s: float | None, kind: str, **fields: Any) -> None:
         entry = {"utc": utc_now(), "t_s": t_s, "event": kind}
@@ -499,6 +533,7 @@ class RunLog:
         self.meta["status"] = status
         self.meta["reason"] = reason
         if status in ("complete", "aborted"):
+            self.sync()  # the rows the digest covers are on disk first
             self.meta["end_utc"] = utc_now()
             self.meta["points_sha256"] = sha256_file(self.dir / POINTS_FILE) if status == "complete" else None
         else:
@@ -507,12 +542,22 @@ class RunLog:
         self.save()
 
     def save(self) -> None:
+        """run.json, replaced atomically, after the rows it may count are on disk."""
+        self.sync()
         try:
             write_text_atomic(self.dir / RUN_FILE, json.dumps(self.meta, indent=2, allow_nan=False) + "\n")
         except UserError as exc:  # benchkit.atomic's one line: disk full, read-only, I/O error
             raise RunFileError(str(exc)) from None
 
     def close(self) -> None:
+        try:
+            self.sync()
+        except RunFileError:
+            pass  # said by whoever saved last; the row is cut back and resume measures it again
+        finally:
+            if self._syncer is not None:
+                self._syncer.shutdown(wait=True)
+                self._syncer = None
         if self._chain is not None and not self._chain.closed:
             self._chain.close()
         if self._fh is not None and not self._fh.closed:
@@ -526,6 +571,13 @@ def _write_all(fd: int, data: bytes) -> None:
     view = memoryview(data)
     while view:
         view = view[os.write(fd, view):]
+
+
+def _fsync_all(fd: int, cfd: int | None) -> None:
+    """A row and its digest onto the disk (run in the row-sync thread)."""
+    os.fsync(fd)
+    if cfd is not None:
+        os.fsync(cfd)
 
 
 def _fsync_dir(d: Path) -> None:

@@ -127,6 +127,42 @@ def test_disk_full_for_run_json_too_still_stops_safely_and_the_run_resumes(tmp_p
     assert read_meta(out)["status"] == "complete"
 
 
+def test_a_row_whose_fsync_fails_is_cut_off_and_stops_the_run_safely(tmp_path, monkeypatch, capsys):
+    # A row's fsync runs while the next point is measured (benchkit/sweep/runlog.py); when it
+    # fails (EIO: the data may not be on the disk [POSIX fsync(2)]) that row is not a
+    # confirmed point: it is cut off again, no later row is written, the bias goes off first,
+    # and the run resumes from its last confirmed point.
+    plan = write_plan(tmp_path / "plan.toml")
+    out = tmp_path / "run"
+    real_fsync = os.fsync
+    synced = {"n": 0}
+
+    def failing_fsync(fd):
+        if fd_path(fd).startswith(str(out)) and fd_path(fd).endswith(runlog.POINTS_FILE):
+            synced["n"] += 1
+            if synced["n"] == 1 + 3 + 1:  # the header, three rows, then the fourth row fails
+                raise OSError(errno.EIO, os.strerror(errno.EIO))
+        return real_fsync(fd)
+
+    with monkeypatch.context() as m:
+        with keep_benches(m) as made:
+            m.setattr(os, "fsync", failing_fsync)
+            code = measure(plan, out)
+        bench = made[0]
+    err = capsys.readouterr().err
+    assert code == 1 and "Traceback" not in err, err
+    assert bench.supply_state() == {"set_V": 0.0, "output_on": False, "terminal_V": 0.0}
+    assert row_keys(read_rows(out)) == planned_keys(plan)[:3]
+    assert (out / "points.csv").read_bytes().endswith(b"\n")
+    # one digest per line still (points.chain is cut back with its row)
+    assert len((out / runlog.CHAIN_FILE).read_bytes()) == 4 * 65
+    meta = read_meta(out)
+    assert meta["status"] == "aborted" and "points.csv" in meta["reason"]
+    assert main(["measure", "--resume", str(out)]) == 0
+    assert row_keys(read_rows(out)) == planned_keys(plan)
+    assert read_meta(out)["status"] == "complete"
+
+
 def test_run_directory_that_cannot_be_made_is_bad_input_and_the_supply_untouched(tmp_path, monkeypatch, capsys):
     plan = write_plan(tmp_path / "plan.toml")
     blocker = tmp_path / "not-a-folder"
