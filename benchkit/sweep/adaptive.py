@@ -11,9 +11,10 @@ sample is made of passes, each a full loop at the plan's polarity (benchkit.swee
         from the top to 0 V at `coarse_points - 1` more (falling).
     pass k >= 2: back to 0 V (if it has rising points), rise through its new rising points,
         go on without reading up to the same top, fall through its new falling points. At
-        each such turning point the engine waits by the dwell policy, as for a point: a part
-        charged through the fixture's feed resistor lags a fast ramp, and one that turns
-        short of the top follows another falling branch.
+        each such turning point the engine waits for the part to charge (the dwell policy's
+        turn wait, benchkit/sweep/passes.py): a part charged through the fixture's feed
+        resistor lags a fast ramp, and one that turns short of the top follows another
+        falling branch.
 
 After every pass each branch is fitted (fits.fit_sweep, the plan's model, "auto" by
 default; per-point sigma from the pooled relative scatter of the readings, see
@@ -26,7 +27,9 @@ this way). A branch whose band exceeds `target_band_pct_of_C0` anywhere gets as 
 points as it has gaps (between neighbouring measured biases) where the band exceeds the
 target, placed in the gaps ranked by max(band in the gap, chord deviation |C''|*h^2/8 of the
 gap), so points go where the fit is least certain or where the curve bends most (in the
-middle half of the gap: at the widest band, or in the middle when the bend ranks it).
+middle half of the gap: at the widest band, or in the middle when the bend ranks it). A
+branch whose band exceeds the target only where no point can go (below `remanent_V`, or in
+a gap already at `resolution_V`) gets no points: points elsewhere cannot narrow it there.
 It stops when both bands are inside the target ("target met"), when the plan's point budget
 `max_points` (all points of the sample) is used up ("point budget reached"), when no gap
 is wide enough for another point at `resolution_V` ("resolution limit"), or when a
@@ -268,7 +271,9 @@ class LoopPlanner:
         chosen: list[tuple[float, str, float]] = []  # (priority, branch, magnitude)
         for b in failing:
             cands = gaps[b]
-            n_uncertain = max(1, sum(1 for c in cands if c[2] > self.s.target_band_pct_of_C0))
+            # one new point per gap whose band exceeds the target; none when the excess lies
+            # only where no point can go (below remanent_V, or a gap at the resolution)
+            n_uncertain = sum(1 for c in cands if c[2] > self.s.target_band_pct_of_C0)
             ranked = sorted(cands, key=lambda c: -c[0])[:n_uncertain]
             chosen += [(pri, b, mag) for pri, mag, _ in ranked]
         if corner is not None:

@@ -53,11 +53,14 @@ class AdaptivePasses:
             self._turn(sw, sw.adaptive.top_V, p.repeat)
 
     def _turn(self, sw: SampleSweep, bias_V: float, pass_index: int) -> None:
-        """Reach a turning point of the loop and wait there by the dwell policy, as for a
-        point (without reading one): the part has to be charged to it and to have relaxed,
-        or it turns short of the top and its falling points follow another branch."""
+        """Reach a turning point of the loop and wait there (without reading a point): the
+        part has to be charged to it, or it turns short of the top and its falling points
+        follow another branch. A policy with a turn_wait() says how long that is (settle
+        detection by prediction: the charging only, benchkit/sweep/settle.py); else the
+        policy waits as for a point."""
         self.supply.ramp_to(bias_V, self.plan.max_ramp_V_per_s, self.gclock)
-        settle = self.policy.wait(self.gclock, lambda: self._probe(sw.conditions))
+        wait = getattr(self.policy, "turn_wait", self.policy.wait)
+        settle = wait(self.gclock, lambda: self._probe(sw.conditions))
         self.log.event(self.t_s(), "adaptive_turn", sample_id=sw.sample.sample_id,
                        pass_index=pass_index, bias_V=bias_V, settle_s=float(settle),
                        flags=list(getattr(settle, "flags", ())))

@@ -61,7 +61,10 @@ sample's first prediction). The point then records the prediction, not a mean of
 C_F = C_inf, with its uncertainty in C_std_F (see benchkit/sweep/point.py). A point costs
 min_dwell_s plus the few readings the fit needs, about one relaxation time or less once the
 sample's first steps have shown its tau. Each finished transient joins the sample's tau
-profile; start_sample() clears it.
+profile; start_sample() clears it. At a turning point of an adaptive loop, where nothing is
+recorded, turn_wait() waits min_dwell_s only (the charging): the relaxation still under way
+there decays with the same time constant as the next step's own [common practice: linear
+response, the responses to successive steps add], so the next point's fit reads it off.
 """
 
 from __future__ import annotations
@@ -386,6 +389,18 @@ class SettleDetector:
                 self.reference_C_F = pred.C_inf_F
         self.last = SettleResult(clock.now() - t0, est, hit_max, len(times), pred,
                                  times[0] if times else None)
+        return self.last
+
+    def turn_wait(self, clock, probe: Callable[[], float]) -> SettleResult:
+        """At a turning point of an adaptive loop (nothing is recorded there): with the
+        prediction rule only the charging through the fixture (min_dwell_s), as the
+        relaxation still under way decays with the dielectric's own time constant and the
+        next point's fit reads it off with its own; the other rules wait as for a point."""
+        if not self.predicts:
+            return self.wait(clock, probe)
+        t0 = clock.now()
+        clock.sleep(self.min_dwell_s)
+        self.last = SettleResult(clock.now() - t0, None, False, 0)
         return self.last
 
     def _estimate(self, times, values, now) -> DriftEstimate | None:

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from benchkit.sweep.adaptive import (
-    STOP_BUDGET, STOP_TARGET, AdaptiveSettings, LoopPlanner, MeasuredPoint, fit_branch,
+    STOP_BUDGET, STOP_RESOLUTION, STOP_TARGET, AdaptiveSettings, LoopPlanner, MeasuredPoint, fit_branch,
 )
 from benchkit.sweep.settle import SettleDetector
 
@@ -110,6 +110,33 @@ def test_adaptive_curves_agree_with_the_true_settled_curve():
                           for v in V])
         err = np.max(np.abs(curve.C(V) - truth)) / C0 * 100.0
         assert err <= 0.5, (branch, err)  # the issue's accuracy target, % of C0
+
+
+def test_a_band_that_no_new_point_can_narrow_gets_no_points():
+    # the rising branch below remanent_V rests on the coarse loop (Miller-type history
+    # [published: S. L. Miller et al., J. Appl. Phys. 68, 6463 (1990)]): a band in excess
+    # only there is not narrowed by points elsewhere, so none are spent on it
+    V = np.linspace(0.0, 6.0, 7)
+    C = 1e-6 / (1.0 + (V / 3.0) ** 2)  # rational law, C(Vh) = C0/2 [derived]
+    pts = [MeasuredPoint("rising", float(v), float(c), 1e-10) for v, c in zip(V, C)]
+    def planner_with(band_in_gaps):
+        planner = LoopPlanner(6.0, AdaptiveSettings(0.5, 40, 7), branches=("rising",))
+        planner.first_pass()
+        real = planner._assess
+
+        def assess(branch, fit, points, C0):
+            st, cands = real(branch, fit, points, C0)
+            st.band_pct_of_C0 = 5.0  # as if the band were wide at 0 V, below the remanent bias
+            return st, [(pri, mag, band_in_gaps) for pri, mag, _ in cands]  # the gaps above it
+
+        planner._assess = assess
+        return planner
+
+    nxt = planner_with(0.1).next_pass(pts)
+    assert nxt.points == [] and nxt.stop_reason == STOP_RESOLUTION
+    # control: where the gaps' band exceeds the target, each such gap gets its point
+    nxt = planner_with(1.0).next_pass(pts)
+    assert len(nxt.points) == len(V) - 1  # one per gap between the coarse points
 
 
 def test_planner_is_deterministic_for_a_replay():

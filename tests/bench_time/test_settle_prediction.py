@@ -125,3 +125,41 @@ def test_prediction_threshold_is_checked():
         SettleDetector(None, 60.0, max_prediction_u_pct_of_C0=0.0)
     assert SettleDetector(None, 60.0, max_prediction_u_pct_of_C0=0.1).predicts
     assert not SettleDetector(0.01, 60.0).predicts
+
+
+def test_a_turn_waits_for_the_charging_only_and_the_next_point_reads_off_what_is_left():
+    # linear response [common practice: the relaxations that follow successive bias steps add,
+    # each with the dielectric's own time constant]: a turning point left after the charging
+    # only still relaxes when the next step comes, and the next point's fit reads it off.
+    # Truth: the simulated part's noise-free settled reading (instruments.sim.physics).
+    spec = part_spec("BD-1003")
+    bench = PhysicsBench(spec, seed=5)
+    det = SettleDetector(None, 60.0, min_dwell_s=1.0, window_s=1.0,
+                         max_prediction_u_pct_of_C0=0.1)
+    det.start_sample()
+    z = []
+    for v in (0.0, 2.0, 4.0, 6.0):
+        bench.ramp(v)
+        det.wait(bench.clock, bench.probe)
+    bench.ramp(0.0)  # the loop's turning point: nothing recorded there
+    n_before, t_before = bench.readings, bench.clock.now()
+    res = det.turn_wait(bench.clock, bench.probe)
+    assert bench.readings == n_before  # no reading the turn does not use
+    assert float(res) == pytest.approx(1.0) and bench.clock.now() - t_before == pytest.approx(1.0)
+    left = abs(bench.C_true_now() - true_settled(bench)) / true_settled(bench)
+    assert left > 1e-3  # the relaxation is far from over at the turn (the case in point)
+    for v in (1.0, 3.0):
+        bench.ramp(v)
+        res = det.wait(bench.clock, bench.probe)
+        z.append((res.prediction.C_inf_F - true_settled(bench)) / res.prediction.u_C_inf_F)
+    assert max(abs(x) for x in z) <= 3.0, z
+
+
+def test_a_turn_under_a_waiting_rule_waits_as_for_a_point():
+    # the drift rule records a mean of readings, not a prediction: it needs the part to have
+    # settled at every step, turning points included (negative control of the test above)
+    bench = PhysicsBench(part_spec("BD-1003"), seed=6)
+    det = SettleDetector(0.01, 60.0, min_dwell_s=0.5, window_s=1.0)
+    bench.ramp(4.0)
+    res = det.turn_wait(bench.clock, bench.probe)
+    assert bench.readings >= 5 and float(res) > 1.0
