@@ -98,12 +98,17 @@ def true_settled(bench):
                          part._bias_age).Cp_F
 
 
-def test_detector_predicts_the_simulated_parts_settled_value_before_it_has_settled():
+def predicting_bench(seed: int):
+    """BD-1003 on the physics bench and a detector of the prediction rule, sample started."""
     spec = part_spec("BD-1003")
-    bench = PhysicsBench(spec, seed=4)
     det = SettleDetector(None, 60.0, min_dwell_s=1.0, window_s=1.0,
                          max_prediction_u_pct_of_C0=0.1)
     det.start_sample()
+    return spec, PhysicsBench(spec, seed=seed), det
+
+
+def test_detector_predicts_the_simulated_parts_settled_value_before_it_has_settled():
+    spec, bench, det = predicting_bench(seed=4)
     z, waited = [], []
     for v in (0.0, 1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 4.0, 2.0, 0.0):
         bench.ramp(v)
@@ -132,11 +137,7 @@ def test_a_turn_waits_for_the_charging_only_and_the_next_point_reads_off_what_is
     # each with the dielectric's own time constant]: a turning point left after the charging
     # only still relaxes when the next step comes, and the next point's fit reads it off.
     # Truth: the simulated part's noise-free settled reading (instruments.sim.physics).
-    spec = part_spec("BD-1003")
-    bench = PhysicsBench(spec, seed=5)
-    det = SettleDetector(None, 60.0, min_dwell_s=1.0, window_s=1.0,
-                         max_prediction_u_pct_of_C0=0.1)
-    det.start_sample()
+    spec, bench, det = predicting_bench(seed=5)
     z = []
     for v in (0.0, 2.0, 4.0, 6.0):
         bench.ramp(v)
