@@ -95,6 +95,18 @@ def test_identity_names_every_input_run_instrument_and_the_software(tmp_path, ve
         assert value in text, value
 
 
+def test_identifiers_are_shown_verbatim_as_code(tmp_path, verification, lot_run):
+    # a run id ends in random hex (runlog), e.g. "-15e8ab": read as prose it looks like a
+    # number in e-notation; shown as code (like the hashes) it is an identifier, and the
+    # engineering-notation check below sets code aside. Every place the run id is shown counts.
+    h, _ = write_report(verification, tmp_path / "r", inputs=[str(lot_run)], now=NOW)
+    page = h.read_text()
+    run_id = json.loads((lot_run / "run.json").read_text())["run_id"]
+    assert page.count(run_id) >= 2  # the list of run ids and its instruments row
+    outside = re.sub(r"<code[^>]*>.*?</code>", "", page)
+    assert run_id not in outside
+
+
 def test_report_id_follows_the_content_not_the_date_or_the_folder(tmp_path, verification, lot_run,
                                                                   claim_path, lot_samples):
     _, j1 = write_report(verification, tmp_path / "a", inputs=[str(lot_run)], now=NOW)
