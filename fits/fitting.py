@@ -565,11 +565,7 @@ def _linear_loo(variants: list[Variant], data: SweepData) -> dict[int, tuple]:
         d = np.abs(np.diag(R))
         if d.min() < _MIN_RCOND * d.max():
             continue
-        h = H[:, k - 1]
-        r = Res[:, k - 1]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            e = np.where(h < 1.0 - 1e-9, r / (1.0 - h), np.inf)
-        out[i] = (np.maximum(e * e, (_LOO_FLOOR_REL * typical) ** 2),
+        out[i] = (_loo_from_hat(Res[:, k - 1], H[:, k - 1], typical),
                   solve_triangular(R, qb[:k]))
     return out
 
@@ -583,25 +579,38 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
     scores = {i: sc[scored] for i, (sc, _) in loo.items()}
     coefs = {i: c for i, (_, c) in loo.items()}
     keys = {i: (True, len(variants[i].spec.powers), 0, True) for i in loo}
-    x = data.bias_V / float(variants[0].fixed["V_scale_V"])
     if not scores:
         return variants[0]
-    allowed = None
+    Vs = float(variants[0].fixed["V_scale_V"])
+    x = data.bias_V / Vs
     grid = np.linspace(x.min(), x.max(), _GRID)
+
+    def curve(i):
+        if variants[i].spec.degree == 0:
+            return None  # a constant cannot turn
+        dense = np.zeros(variants[i].spec.degree + 1)
+        dense[list(variants[i].spec.powers)] = coefs[i]
+        return np.polynomial.polynomial.polyval(grid, dense), grid * Vs
+
+    return variants[_smooth_choice(scores, keys, data, curve)]
+
+
+def _smooth_choice(scores: dict, keys: dict, data: SweepData, curve):
+    """_choose's first candidate whose curve does not turn where the data do not
+    (_wiggles); curve(i) gives (C on a fine grid, that grid's biases), or None for a
+    candidate that cannot turn. The scores and keys of refused candidates are dropped."""
+    allowed = None
     tol = _turn_tol(data)
     while True:
         order, _ = _choose(scores, keys, weighted=data.sigma_F is not None)
         i = order[0]
-        if len(scores) == 1 or variants[i].spec.degree == 0:
-            return variants[i]
-        if allowed is None:
+        on_grid = curve(i) if len(scores) > 1 else None
+        if on_grid is None:
+            return i
+        if allowed is None:  # only once a candidate has to be looked at
             allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
-        dense = np.zeros(variants[i].spec.degree + 1)
-        dense[list(variants[i].spec.powers)] = coefs[i]
-        Vs = float(variants[0].fixed["V_scale_V"])
-        if not _wiggles(np.polynomial.polynomial.polyval(grid, dense), grid * Vs, data,
-                        allowed, tol):
-            return variants[i]
+        if not _wiggles(*on_grid, data, allowed, tol):
+            return i
         del scores[i], keys[i]  # turns between the points where the data do not
 
 
@@ -628,26 +637,18 @@ def _spline_choice(variants: list[Variant], data: SweepData) -> Variant:
         if d.min() < _MIN_RCOND * d.max():
             continue
         qb = Qn.T @ yw
-        h = np.sum(Qn * Qn, axis=1)
-        r = yw - Qn @ qb
-        with np.errstate(divide="ignore", invalid="ignore"):
-            e = np.where(h < 1.0 - 1e-9, r / (1.0 - h), np.inf)
-        scores[i] = np.maximum(e * e, (_LOO_FLOOR_REL * typical) ** 2)[scored]
+        scores[i] = _loo_from_hat(yw - Qn @ qb, np.sum(Qn * Qn, axis=1), typical)[scored]
         keys[i] = (True, k, 0, True)
         coef = solve_triangular(Rn, qb) / norms
         curves[i] = (knots, coef)
     if not scores:
         return variants[0]
-    allowed = quality.data_turns(data.bias_V, data.C_F, data.sigma_F)
-    tol = _turn_tol(data)
-    while True:
-        order, _ = _choose(scores, keys, weighted=data.sigma_F is not None)
-        i = order[0]
+
+    def curve(i):
         knots, coef = curves[i]
-        if len(scores) == 1 or not _wiggles(variants[i].spec.power_basis(grid, knots) @ coef,
-                                            grid, data, allowed, tol):
-            return variants[i]
-        del scores[i], keys[i]  # turns between the points where the data do not
+        return variants[i].spec.power_basis(grid, knots) @ coef, grid
+
+    return variants[_smooth_choice(scores, keys, data, curve)]
 
 
 def _wiggles(C_grid, grid_V, data: SweepData, allowed: int, tol: float) -> bool:
@@ -811,7 +812,12 @@ def _scored_points(V) -> np.ndarray:
 def _loo_scores(J_free, w, resid_w, cov_u, typical) -> np.ndarray:
     """Squared weighted leave-one-out residuals r_i/(1 - h_ii), h = Jw (Jw^T Jw)^-1 Jw^T."""
     Jw = J_free * w[:, None]
-    h = np.einsum("ij,jk,ik->i", Jw, cov_u, Jw)
+    return _loo_from_hat(resid_w, np.einsum("ij,jk,ik->i", Jw, cov_u, Jw), typical)
+
+
+def _loo_from_hat(resid_w, h, typical) -> np.ndarray:
+    """Squared leave-one-out residuals r_i/(1 - h_ii) from the weighted residuals and the hat
+    diagonal (infinite where a point alone fixes the fit), floored at _LOO_FLOOR_REL."""
     with np.errstate(divide="ignore", invalid="ignore"):
         e = np.where(h < 1.0 - 1e-9, resid_w / (1.0 - h), np.inf)
     return np.maximum(e * e, (_LOO_FLOOR_REL * typical) ** 2)
