@@ -99,18 +99,22 @@ class SamplePoints:
                           [r["branch"] for r in self.rows + self.left_out_rows]))
         return list(dict.fromkeys(b for _, b in seen))
 
-    def select(self, branch: str) -> "SamplePoints":
-        """The same sample restricted to one branch (kept and left-out points)."""
-        keep = self.branch == branch
+    def take(self, keep: np.ndarray, left_out: list[int]) -> "SamplePoints":
+        """The same sample with only the points where `keep` is True, and the left-out points
+        at the indexes `left_out`: every per-point column in one place."""
         idx = np.flatnonzero(keep)
-        out = [i for i, r in enumerate(self.left_out_rows) if r["branch"] == branch]
         return replace(self, bias_V=self.bias_V[keep], C_F=self.C_F[keep],
                        C_std_F=self.C_std_F[keep], n_readings=self.n_readings[keep],
                        temp_C=self.temp_C[keep], branch=self.branch[keep],
                        rows=[self.rows[i] for i in idx], lines=tuple(self.lines[i] for i in idx),
-                       left_out_rows=[self.left_out_rows[i] for i in out],
-                       left_out_lines=tuple(self.left_out_lines[i] for i in out),
+                       left_out_rows=[self.left_out_rows[i] for i in left_out],
+                       left_out_lines=tuple(self.left_out_lines[i] for i in left_out),
                        turning=self.turning[keep])
+
+    def select(self, branch: str) -> "SamplePoints":
+        """The same sample restricted to one branch (kept and left-out points)."""
+        return self.take(self.branch == branch,
+                         [i for i, r in enumerate(self.left_out_rows) if r["branch"] == branch])
 
 
 @dataclass(frozen=True)
@@ -183,8 +187,9 @@ def _sample(sid: str, items: list[tuple[int, dict]], dropped: list[tuple[int, di
         labels.append(r["branch"])
     first = (items or dropped)[0][1]
     n_read = len(items)
+    items = list(items)  # the caller's list stays as read
     for i in _turning_points(V, labels):  # the top of each loop, for the falling branch too
-        items = items + [(items[i][0], dict(items[i][1], branch="falling"))]
+        items.append((items[i][0], dict(items[i][1], branch="falling")))
         for col in (V, C, std, n, temp):
             col.append(col[i])
         labels.append("falling")

@@ -9,8 +9,6 @@ other, set points of a plan at least 5 degC apart (benchkit/sweep/temperature.py
 
 from __future__ import annotations
 
-from dataclasses import replace
-
 import numpy as np
 
 TEMP_GROUP_TOL_C = 2.0
@@ -29,11 +27,5 @@ def split_by_temperature(smp, tol_C: float = TEMP_GROUP_TOL_C) -> list:
     out = []
     for g in range(int(labels.max()) + 1):
         keep = labels == g
-        idx = np.flatnonzero(keep)
-        part = replace(smp, bias_V=smp.bias_V[keep], C_F=smp.C_F[keep], C_std_F=smp.C_std_F[keep],
-                       n_readings=smp.n_readings[keep], temp_C=smp.temp_C[keep],
-                       branch=smp.branch[keep], rows=[smp.rows[i] for i in idx],
-                       lines=tuple(smp.lines[i] for i in idx), left_out_rows=[], left_out_lines=(),
-                       turning=smp.turning[keep])
-        out.append((float(np.mean(T[keep])), part))
+        out.append((float(np.mean(T[keep])), smp.take(keep, [])))
     return out
