@@ -24,18 +24,20 @@ class LinkRecoveries:
 
     def _link_counts(self) -> dict:
         return {role: (dict(s.counters), list(getattr(s, "events", ())))
-                for role, s in self._link_sessions().items()}
+                for role, s in self._sessions.items()}
 
     def _watch_links(self) -> None:
-        """The state _note_recoveries compares against: taken once the links are open."""
-        self._sessions = list(self._link_sessions().values())
+        """The state _note_recoveries compares against: taken once the links are open (a
+        reconnect reopens a session's resource, never replaces the session)."""
+        self._sessions = self._link_sessions()
         self._links = self._link_counts()
         self._retries_seen = self._retry_total()
 
     def _retry_total(self) -> int:
         """The sum of every link's retry counters: unchanged means nothing to note (looked
         at several times a point, so kept to a few lookups)."""
-        return sum(s.counters.get(k, 0) for s in self._sessions for k in self.RETRY_COUNTERS)
+        return sum(s.counters.get(k, 0) for s in self._sessions.values()
+                   for k in self.RETRY_COUNTERS)
 
     def _note_recoveries(self) -> bool:
         """Log what each link recovered from since the last look (event link_recovered).

@@ -8,6 +8,7 @@ that a typo in a profile fails before the bench is touched, with the file and fi
 
 from __future__ import annotations
 
+import functools
 import math
 import re
 import string
@@ -44,24 +45,19 @@ _TOKEN_RE = re.compile(r"^[A-Za-z0-9_+\-.]+$")
 _SAFE_COMMAND_RE = re.compile(r"^[\x20-\x3a\x3c-\x7e]+$")
 
 
-# Commands already found safe (a sweep sends the same few texts again and again, each checked
-# where it is formatted, sent and written); bounded, as set values make new texts.
-_SAFE_SEEN: dict[str, None] = {}
-_SAFE_SEEN_MAX = 4096
+@functools.lru_cache(maxsize=4096)
+def _safe_text(command: str) -> bool:
+    """The match, remembered: a sweep sends the same few texts again and again, each checked
+    where it is formatted, sent and written."""
+    return _SAFE_COMMAND_RE.match(command) is not None
 
 
 def check_command_text(command: str, where: str = "command") -> str:
     """Refuse a command that could carry a second command, a terminator or control bytes."""
-    if type(command) is str and command in _SAFE_SEEN:
-        return command
-    if not isinstance(command, str) or not _SAFE_COMMAND_RE.match(command):
+    if not isinstance(command, str) or not _safe_text(command):
         raise UnsafeCommandError(
             f"{where}: refusing to send {command!r}: a command must be one line of printable "
             "ASCII without ';' (one SCPI message unit)")
-    if type(command) is str:
-        if len(_SAFE_SEEN) >= _SAFE_SEEN_MAX:
-            _SAFE_SEEN.clear()
-        _SAFE_SEEN[command] = None
     return command
 
 
