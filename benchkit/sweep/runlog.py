@@ -6,9 +6,9 @@ partial line, dropped on resume). Its fsync runs in a thread of its own while th
 is measured (the disk's wait overlaps the instruments'); the next row is written, and run.json
 replaced, only once that fsync has confirmed, so a power cut loses at most the point in
 progress and, when it falls within the milliseconds of that fsync, the row saved just before.
-A failed fsync cuts its row off again and stops the run at the next row or run.json update. run.json is
-replaced atomically at the start (status running), on every status change and at the end
-(complete with the sha256 of points.csv, or aborted with the reason). The columns are the
+A failed fsync cuts its row off again and stops the run at the next row or run.json update.
+run.json is replaced atomically at the start (status running), on every status change and at
+the end (complete with the sha256 of points.csv, or aborted with the reason). The columns are the
 interface with the fitting and verification code (DEVELOPERS.md, "File formats": run directory).
 
 points.chain holds one digest per line of points.csv, written with the line: a hash chain,
@@ -553,7 +553,9 @@ class RunLog:
         try:
             self.sync()
         except RunFileError:
-            pass  # said by whoever saved last; the row is cut back and resume measures it again
+            # closing is the way out of a run that ended already (its status said or not
+            # writable): the row is cut back, and a resume measures that point again
+            pass
         finally:
             if self._syncer is not None:
                 self._syncer.shutdown(wait=True)
