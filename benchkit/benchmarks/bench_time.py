@@ -37,11 +37,13 @@ LIMITS = {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 
 # One adaptive plan for every part. Settle detection by prediction (benchkit/sweep/settle.py,
 # prediction rule): each point records the settled value read off the relaxation fit of its
 # dwell, once its standard uncertainty is within 0.15 % of C0 (the 0.5 % target is a k = 2
-# band of the fitted curve, which averages over the points); min_dwell_s 1 s for the part to
-# charge through the fixture's feed resistor (several R*C for the largest demo part) before
-# the fit's readings, as a charging tail would pass for a fast relaxation.
+# band of the fitted curve, which averages over the points); the part charges through the
+# fixture's feed resistor (10 kohm on the demo bench, instruments/sim/fixture.py Wiring) for
+# at least min_dwell_s 1 s and CHARGE_TIME_CONSTANTS (8) times R*C of the largest C its
+# tolerance allows (2.1 s for a 22 uF part) before the fit's readings, as a charging tail
+# would pass for a fast relaxation.
 SETTLE = {"max_prediction_u_pct_of_C0": 0.15, "max_tau_s": 20.0, "max_dwell_s": 60.0,
-          "min_dwell_s": 1.0, "window_s": 1.0}
+          "min_dwell_s": 1.0, "window_s": 1.0, "feed_R_ohm": 10e3}
 ADAPTIVE = {"target_band_pct_of_C0": 0.5, "max_points": 40, "coarse_points": 7}
 TARGET_RATIO = 0.25
 TARGET_ERROR_PCT = 0.5

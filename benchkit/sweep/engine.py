@@ -171,7 +171,9 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
             self.supply.output_on = True
             self.output_on = True
         if hasattr(self.policy, "start_sample"):  # settle detection: the sample's own C0
-            self.policy.start_sample()
+            from benchkit.sweep.settle import largest_C_F
+
+            self.policy.start_sample(largest_C_F(sw.part))  # and its charge wait
         self.log.event(self.t_s(), "sample_start", sample_id=sw.sample.sample_id, channel=sw.sample.channel)
         self.log.save()
 

@@ -25,6 +25,7 @@ Layout (every field in SI units; see data/plans/demo.toml):
     max_residual_pct_of_reading = 0.1; max_residual_pct_of_C0 = 0.05; max_tau_s = 20.0
     max_prediction_u_pct_of_C0 = 0.1 # or: record the settled value predicted from the transient
     min_dwell_s = 0.5; window_s = 2.0; read_interval_s = 0.0
+    feed_R_ohm = 10e3; charge_time_constants = 8   # optional: wait 8*R*C for a large part
     [adaptive]                       # optional: adaptive bias steps (benchkit/sweep/adaptive.py)
     target_band_pct_of_C0 = 0.5; max_points = 40; coarse_points = 7
     coverage_k = 2.0; resolution_V = 0.05; model = "auto"
@@ -504,8 +505,15 @@ def _parse_settle(raw: Mapping, where: str) -> dict:
         "min_dwell_s": f.number("min_dwell_s", default=0.5, lo=0.0, hi=MAX_DWELL_S),
         "window_s": f.number("window_s", default=2.0, positive=True, hi=MAX_DWELL_S),
         "read_interval_s": f.number("read_interval_s", default=0.0, lo=0.0, hi=MAX_DWELL_S),
+        # the fixture's feed resistor: a large part then waits longer to charge (settle.py)
+        "feed_R_ohm": f.number("feed_R_ohm", default=None, positive=True, hi=1e9),
+        "charge_time_constants": f.number("charge_time_constants", default=None, positive=True,
+                                          hi=50.0),
     })
     f.done()
+    for key in ("feed_R_ohm", "charge_time_constants"):
+        if st[key] is None:
+            del st[key]  # plans without them keep their digest
     if st["max_prediction_u_pct_of_C0"] is None:
         del st["max_prediction_u_pct_of_C0"]  # plans without it keep their digest
     if st["min_dwell_s"] > st["max_dwell_s"]:

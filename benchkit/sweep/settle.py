@@ -17,7 +17,9 @@ reading the standard error is about s*sqrt(12/N)/W. Readings that are not finite
 positive (an overload answer, a dropped reading) are left out.
 
 Rule. The part counts as settled at the first reading where
-  - at least `min_dwell_s` has passed since the bias was reached,
+  - at least the charge wait has passed since the bias was reached (`min_dwell_s`, or
+    `charge_time_constants` times feed_R_ohm*C of the largest C the part may have when the
+    plan gives the fixture's `feed_R_ohm` and that is longer: charge_wait_for),
   - the readings span at least `window_s` (at least MIN_WINDOW_READINGS of them), and
   - |drift| + DRIFT_MARGIN_SE * u(drift) <= max_drift_pct_per_s,
 so a window that only looks flat because of noise does not count. If that has not happened
@@ -62,7 +64,7 @@ C_F = C_inf, with its uncertainty in C_std_F (see benchkit/sweep/point.py). A po
 min_dwell_s plus the few readings the fit needs, about one relaxation time or less once the
 sample's first steps have shown its tau. Each finished transient joins the sample's tau
 profile; start_sample() clears it. At a turning point of an adaptive loop, where nothing is
-recorded, turn_wait() waits min_dwell_s only (the charging): the relaxation still under way
+recorded, turn_wait() waits the charge wait only: the relaxation still under way
 there decays with the same time constant as the next step's own [common practice: linear
 response, the responses to successive steps add], so the next point's fit reads it off.
 """
@@ -91,6 +93,34 @@ RESIDUAL_PROFILE_DSSR = 9.0  # taus kept: SSR <= SSR_min + this * variance (~3 s
 RESIDUAL_TAU_MIN_FRAC = 0.05  # shortest tau tried, as a fraction of the readings' span
 RESIDUAL_TAU_GRID = 40
 MIN_TAU_FRACTION_OF_MIN_DWELL = 0.25  # the prediction's shortest tau (prediction.py)
+# Charge wait, in time constants R_feed*C of the part charging through the fixture's feed
+# resistor. At the end of a ramp at rate r the part lags the supply by about r*R*C [derived:
+# first-order RC low-pass driven by a ramp], and that lag decays as exp(-t/(R*C)): a reading
+# taken while it lasts is off by |dC/dV|*lag, which a relaxation fit would take for a fast
+# relaxation. With r = 5 V/s, R*C = 0.26 s (22 uF + 20 % on 10 kohm) and |dC/dV| of 15 % of
+# C per volt (a steep class-2 curve) the lag costs 20 % of C at first; 8 time constants
+# bring it to 0.007 %, below a reading's noise (exp(-8) = 3.4e-4).
+CHARGE_TIME_CONSTANTS = 8.0
+
+
+def largest_C_F(part) -> float | None:
+    """The largest C a part may have at 0 V: the top of its tolerance (None if unknown)."""
+    limits = getattr(part, "tolerance_limits_F", None)
+    try:
+        return float(limits()[1]) if callable(limits) else None
+    except (TypeError, ValueError):
+        return None
+
+
+def charge_wait_for(min_dwell_s: float, feed_R_ohm: float | None, C_max_F: float | None,
+                    n_tau: float = CHARGE_TIME_CONSTANTS, max_dwell_s: float = math.inf) -> float:
+    """How long after the bias is reached before a reading can be used: min_dwell_s, or
+    n_tau*feed_R_ohm*C_max_F when that is longer (a large part on a high feed resistor
+    charges for longer than any one fixed wait suits), never beyond max_dwell_s."""
+    wait = float(min_dwell_s)
+    if feed_R_ohm is not None and C_max_F is not None and C_max_F > 0:
+        wait = max(wait, n_tau * float(feed_R_ohm) * float(C_max_F))
+    return min(wait, float(max_dwell_s))
 
 
 @dataclass(frozen=True)
@@ -223,7 +253,9 @@ class SettleDetector:
                  min_dwell_s: float = 0.5, window_s: float = 2.0, read_interval_s: float = 0.0,
                  max_residual_pct_of_reading: float | None = None, max_tau_s: float = 20.0,
                  max_residual_pct_of_C0: float | None = None,
-                 max_prediction_u_pct_of_C0: float | None = None):
+                 max_prediction_u_pct_of_C0: float | None = None,
+                 feed_R_ohm: float | None = None,
+                 charge_time_constants: float = CHARGE_TIME_CONSTANTS):
         if (max_drift_pct_per_s is None and max_residual_pct_of_reading is None
                 and max_residual_pct_of_C0 is None and max_prediction_u_pct_of_C0 is None):
             raise ValueError("settle: give max_drift_pct_per_s, max_residual_pct_of_reading, "
@@ -240,6 +272,9 @@ class SettleDetector:
         for label, v in checks:
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
                 raise ValueError(f"settle: {label} must be a positive number, got {v!r}")
+        if feed_R_ohm is not None:
+            checks.append(("feed_R_ohm", feed_R_ohm))
+        checks.append(("charge_time_constants", charge_time_constants))
         for label, v in (("min_dwell_s", min_dwell_s), ("read_interval_s", read_interval_s)):
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
                 raise ValueError(f"settle: {label} must be a number >= 0, got {v!r}")
@@ -260,6 +295,9 @@ class SettleDetector:
         self.reference_C_F: float | None = None  # the sample's C0 (start_sample, wait)
         self.max_dwell_s = float(max_dwell_s)
         self.min_dwell_s = float(min_dwell_s)
+        self.feed_R_ohm = None if feed_R_ohm is None else float(feed_R_ohm)
+        self.charge_time_constants = float(charge_time_constants)
+        self.charge_wait_s = self.min_dwell_s  # the sample's (start_sample)
         self.window_s = float(window_s)
         self.read_interval_s = float(read_interval_s)
         self.last: SettleResult | None = None
@@ -276,19 +314,23 @@ class SettleDetector:
                    settle["min_dwell_s"], settle["window_s"], settle["read_interval_s"],
                    settle.get("max_residual_pct_of_reading"), settle.get("max_tau_s", 20.0),
                    settle.get("max_residual_pct_of_C0"),
-                   settle.get("max_prediction_u_pct_of_C0"))
+                   settle.get("max_prediction_u_pct_of_C0"), settle.get("feed_R_ohm"),
+                   settle.get("charge_time_constants", CHARGE_TIME_CONSTANTS))
 
     @property
     def predicts(self) -> bool:
         """True when the point records the predicted settled value (prediction rule)."""
         return self.max_prediction_u_pct_of_C0 is not None
 
-    def start_sample(self) -> None:
+    def start_sample(self, C_max_F: float | None = None) -> None:
         """A new sample: its first settled reading becomes its C0; a new dielectric, so its
-        relaxation time is learnt afresh."""
+        relaxation time is learnt afresh; and its own charge wait (charge_wait_for), from
+        the largest C its part may have (C_max_F: the top of its tolerance)."""
         self.reference_C_F = None
+        self.charge_wait_s = charge_wait_for(self.min_dwell_s, self.feed_R_ohm, C_max_F,
+                                             self.charge_time_constants, self.max_dwell_s)
         self.tau_profile = TauProfile(self.max_tau_s,
-                                      MIN_TAU_FRACTION_OF_MIN_DWELL * self.min_dwell_s)
+                                      MIN_TAU_FRACTION_OF_MIN_DWELL * self.charge_wait_s)
 
     def settled(self, est: DriftEstimate) -> bool:
         """The drift rule: the drift, one standard error to the bad side, is within the
@@ -299,11 +341,11 @@ class SettleDetector:
                 <= self.max_drift_pct_per_s)
 
     def residual_ok(self, times, values, t0: float) -> bool:
-        """The residual rule on the dwell's readings from min_dwell_s on (module docstring);
+        """The residual rule on the dwell's readings from the charge wait on (module docstring);
         always true when the plan gives no residual threshold."""
         if self.max_residual_pct_of_reading is None and self.max_residual_pct_of_C0 is None:
             return True
-        lo = t0 + self.min_dwell_s - 1e-9
+        lo = t0 + self.charge_wait_s - 1e-9
         k = next((i for i, t in enumerate(times) if t >= lo), len(times))
         t, c = times[k:], values[k:]
         if len(t) < MIN_FIT_READINGS or t[-1] - t[0] < self.window_s * (1 - 1e-9):
@@ -337,7 +379,7 @@ class SettleDetector:
                 times.append(t)
                 values.append(float(c))
             est = self._estimate(times, values, t) or est
-            if (est is not None and t - t0 >= self.min_dwell_s and self.settled(est)
+            if (est is not None and t - t0 >= self.charge_wait_s and self.settled(est)
                     and self.residual_ok(times, values, t0)):
                 self.last = SettleResult(t - t0, est, False, len(times))
                 if self.reference_C_F is None:
@@ -353,7 +395,7 @@ class SettleDetector:
         """The prediction rule (module docstring): read until the predicted settled value is
         known well enough, or max_dwell_s; the transient then joins the sample's tau profile."""
         t0 = clock.now()
-        lo = t0 + self.min_dwell_s - 1e-9
+        lo = t0 + self.charge_wait_s - 1e-9
         times: list[float] = []
         values: list[float] = []
         pred: Prediction | None = None
@@ -393,13 +435,13 @@ class SettleDetector:
 
     def turn_wait(self, clock, probe: Callable[[], float]) -> SettleResult:
         """At a turning point of an adaptive loop (nothing is recorded there): with the
-        prediction rule only the charging through the fixture (min_dwell_s), as the
+        prediction rule only the charging through the fixture (the charge wait), as the
         relaxation still under way decays with the dielectric's own time constant and the
         next point's fit reads it off with its own; the other rules wait as for a point."""
         if not self.predicts:
             return self.wait(clock, probe)
         t0 = clock.now()
-        clock.sleep(self.min_dwell_s)
+        clock.sleep(self.charge_wait_s)
         self.last = SettleResult(clock.now() - t0, None, False, 0)
         return self.last
 
@@ -416,6 +458,6 @@ class SettleDetector:
         return window_drift(t, c)
 
 
-__all__ = ["SettleDetector", "Prediction", "SettleResult", "DriftEstimate", "window_drift",
+__all__ = ["SettleDetector", "charge_wait_for", "largest_C_F", "CHARGE_TIME_CONSTANTS", "Prediction", "SettleResult", "DriftEstimate", "window_drift",
            "ResidualEstimate", "relaxation_residual", "MIN_FIT_READINGS",
            "MAX_DWELL_FLAG", "MIN_WINDOW_READINGS", "DRIFT_MARGIN_SE"]

@@ -25,8 +25,13 @@ def expected_duration_s(plan: Plan, sw: SampleSweep) -> tuple[float, float]:
     ramp += abs(prev) / rate  # back to 0 V at the end of the sample
     n = len(sw.points)
     if plan.measure["dwell"] == "settle" and plan.settle is not None:
+        from benchkit.sweep.settle import CHARGE_TIME_CONSTANTS, charge_wait_for, largest_C_F
+
         st = plan.settle
-        return ramp + n * st["min_dwell_s"], ramp + n * st["max_dwell_s"]
+        shortest = charge_wait_for(st["min_dwell_s"], st.get("feed_R_ohm"), largest_C_F(sw.part),
+                                   st.get("charge_time_constants", CHARGE_TIME_CONSTANTS),
+                                   st["max_dwell_s"])
+        return ramp + n * shortest, ramp + n * st["max_dwell_s"]
     d = n * float(plan.dwell_s or 0.0)
     return ramp + d, ramp + d
 
