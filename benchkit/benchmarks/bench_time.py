@@ -18,6 +18,11 @@ the bench's falling truth is that of a turn far out (the two differ over about t
 coercive voltage below the top). Errors are in percent of C0, the true rising value at 0 V.
 Bench time is the run's clock time from start to the end of the final ramp to 0 V
 (discharge wait 0 s in both plans, so it does not count for either).
+
+Seeds. The adaptive sweep's course depends on the meter's noise (which points the planner
+adds, which law the fit chooses), so it runs once per seed of SEEDS (the simulated bench's
+noise seed) and each part is judged by its worst seed: a target met on one noise draw only
+is not met. The uniform sweep takes the same clock time at every seed and runs at seed 0.
 """
 
 from __future__ import annotations
@@ -48,6 +53,7 @@ ADAPTIVE = {"target_band_pct_of_C0": 0.5, "max_points": 40, "coarse_points": 7}
 TARGET_RATIO = 0.25
 TARGET_ERROR_PCT = 0.5
 ERROR_GRID_POINTS = 401
+SEEDS = (0, 1, 2)  # noise seeds of the adaptive sweep; --quick runs the first only
 QUICK_PARTS = ("BD-1001", "BD-1008")
 QUICK_TOP_V = 3.0  # --quick: only checks that everything runs, so short sweeps
 
@@ -158,20 +164,32 @@ def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
         if quick:
             top = min(top, QUICK_TOP_V)
         u = run_one(uniform_plan(sref, top), runs / slot.part_id / "uniform")
-        a = run_one(adaptive_plan(sref, top), runs / slot.part_id / "adaptive")
-        ratio = a["bench_s"] / u["bench_s"]
+        seeds = SEEDS[:1] if quick else SEEDS
+        by_seed = [run_one(adaptive_plan(sref, top), runs / slot.part_id / f"adaptive-seed{k}",
+                           seed=k) for k in seeds]
+        a = by_seed[0]
+        ratios = [r["bench_s"] / u["bench_s"] for r in by_seed]
+        errors = [r["max_error_pct_of_C0"] for r in by_seed]
         results[slot.part_id] = {
             "description": cat[slot.part_id].description,
             "top_V": top,
             "uniform": u,
-            "adaptive": a,
-            "bench_time_ratio": ratio,
-            "meets_time_target": ratio <= TARGET_RATIO,
-            "meets_error_target": a["max_error_pct_of_C0"] <= TARGET_ERROR_PCT,
+            "adaptive": a,  # seed 0
+            "bench_time_ratio": ratios[0],
+            "seeds": {"seeds": list(seeds), "bench_time_ratio": ratios,
+                      "max_error_pct_of_C0": errors,
+                      "passes": [r.get("passes") for r in by_seed],
+                      "stop_reason": [r.get("stop_reason") for r in by_seed]},
+            "worst_bench_time_ratio": max(ratios),
+            "worst_max_error_pct_of_C0": max(errors),
+            "meets_time_target": max(ratios) <= TARGET_RATIO,
+            "meets_error_target": max(errors) <= TARGET_ERROR_PCT,
         }
         log(f"bench time {slot.part_id}: uniform {u['bench_s']:.0f} s / {u['points']} points, "
-            f"adaptive {a['bench_s']:.0f} s / {a['points']} points, ratio {ratio:.2f}, "
-            f"max error {u['max_error_pct_of_C0']:.3f} % / {a['max_error_pct_of_C0']:.3f} % of C0")
+            f"adaptive {a['bench_s']:.0f} s / {a['points']} points, ratio "
+            f"{' '.join(f'{x:.2f}' for x in ratios)} (seeds {', '.join(map(str, seeds))}), "
+            f"max error {u['max_error_pct_of_C0']:.3f} % / "
+            f"{' '.join(f'{x:.3f}' for x in errors)} % of C0")
     missing = sorted(set(wanted) - set(results))
     if missing:
         raise ValueError(f"no demo part {', '.join(missing)} on the demo fixture")
@@ -181,6 +199,7 @@ def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
         "what": "bench seconds of a uniform sweep (0.5 V steps, fixed 5 s dwell) against settle "
                 "detection plus adaptive steps; max |fit - true settled curve| in % of C0",
         "settings": {"uniform_step_V": UNIFORM_STEP_V, "uniform_dwell_s": UNIFORM_DWELL_S,
+                     "seeds": list(SEEDS[:1] if quick else SEEDS),
                      "n_readings": N_READINGS, "settle": SETTLE, "adaptive": ADAPTIVE,
                      "limits": LIMITS},
         "target": {"max_bench_time_ratio": TARGET_RATIO, "max_error_pct_of_C0": TARGET_ERROR_PCT},
