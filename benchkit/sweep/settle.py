@@ -269,12 +269,12 @@ class SettleDetector:
             checks.append(("max_residual_pct_of_C0", max_residual_pct_of_C0))
         if max_prediction_u_pct_of_C0 is not None:
             checks.append(("max_prediction_u_pct_of_C0", max_prediction_u_pct_of_C0))
-        for label, v in checks:
-            if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
-                raise ValueError(f"settle: {label} must be a positive number, got {v!r}")
         if feed_R_ohm is not None:
             checks.append(("feed_R_ohm", feed_R_ohm))
         checks.append(("charge_time_constants", charge_time_constants))
+        for label, v in checks:
+            if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
+                raise ValueError(f"settle: {label} must be a positive number, got {v!r}")
         for label, v in (("min_dwell_s", min_dwell_s), ("read_interval_s", read_interval_s)):
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
                 raise ValueError(f"settle: {label} must be a number >= 0, got {v!r}")

@@ -103,6 +103,13 @@ def test_without_the_feed_resistor_the_charging_tail_passes_for_a_relaxation():
     assert np.median(z) >= 3.0, z
 
 
+def test_the_detector_refuses_a_feed_resistor_or_time_constants_that_are_not_positive():
+    for bad in ({"feed_R_ohm": -1.0}, {"feed_R_ohm": 0.0}, {"charge_time_constants": 0.0},
+                {"feed_R_ohm": float("nan")}):
+        with pytest.raises(ValueError, match=next(iter(bad))):
+            SettleDetector(None, 60.0, max_prediction_u_pct_of_C0=0.1, **bad)
+
+
 def _plan(settle_extra):
     settle = {"max_prediction_u_pct_of_C0": 0.15, "max_dwell_s": 60.0, **settle_extra}
     return {"name": "charge", "bias": {"points_V": [0.0, 1.0]},
