@@ -155,6 +155,7 @@ def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
     runs = Path(out_dir) / "runs"
     if runs.exists():
         shutil.rmtree(runs)  # this benchmark's own run directories from a previous run
+    seeds = SEEDS[:1] if quick else SEEDS
     results = {}
     for slot in fixture:
         if slot.part_id not in wanted:
@@ -164,7 +165,6 @@ def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
         if quick:
             top = min(top, QUICK_TOP_V)
         u = run_one(uniform_plan(sref, top), runs / slot.part_id / "uniform")
-        seeds = SEEDS[:1] if quick else SEEDS
         by_seed = [run_one(adaptive_plan(sref, top), runs / slot.part_id / f"adaptive-seed{k}",
                            seed=k) for k in seeds]
         a = by_seed[0]
@@ -199,7 +199,7 @@ def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
         "what": "bench seconds of a uniform sweep (0.5 V steps, fixed 5 s dwell) against settle "
                 "detection plus adaptive steps; max |fit - true settled curve| in % of C0",
         "settings": {"uniform_step_V": UNIFORM_STEP_V, "uniform_dwell_s": UNIFORM_DWELL_S,
-                     "seeds": list(SEEDS[:1] if quick else SEEDS),
+                     "seeds": list(seeds),
                      "n_readings": N_READINGS, "settle": SETTLE, "adaptive": ADAPTIVE,
                      "limits": LIMITS},
         "target": {"max_bench_time_ratio": TARGET_RATIO, "max_error_pct_of_C0": TARGET_ERROR_PCT},

@@ -123,6 +123,14 @@ def charge_wait_for(min_dwell_s: float, feed_R_ohm: float | None, C_max_F: float
     return min(wait, float(max_dwell_s))
 
 
+def plan_charge_wait_s(settle: dict, part) -> float:
+    """The charge wait a point of `part` gets under the plan's normalised [settle] table (the
+    same as SettleDetector.from_plan(settle) after start_sample(largest_C_F(part)))."""
+    return charge_wait_for(settle["min_dwell_s"], settle.get("feed_R_ohm"), largest_C_F(part),
+                           settle.get("charge_time_constants", CHARGE_TIME_CONSTANTS),
+                           settle["max_dwell_s"])
+
+
 @dataclass(frozen=True)
 class DriftEstimate:
     """Drift over one window: percent of the mean reading per second, and its standard error."""
@@ -458,6 +466,7 @@ class SettleDetector:
         return window_drift(t, c)
 
 
-__all__ = ["SettleDetector", "charge_wait_for", "largest_C_F", "CHARGE_TIME_CONSTANTS", "Prediction", "SettleResult", "DriftEstimate", "window_drift",
+__all__ = ["SettleDetector", "charge_wait_for", "plan_charge_wait_s", "largest_C_F",
+           "CHARGE_TIME_CONSTANTS", "Prediction", "SettleResult", "DriftEstimate", "window_drift",
            "ResidualEstimate", "relaxation_residual", "MIN_FIT_READINGS",
            "MAX_DWELL_FLAG", "MIN_WINDOW_READINGS", "DRIFT_MARGIN_SE"]

@@ -25,13 +25,10 @@ def expected_duration_s(plan: Plan, sw: SampleSweep) -> tuple[float, float]:
     ramp += abs(prev) / rate  # back to 0 V at the end of the sample
     n = len(sw.points)
     if plan.measure["dwell"] == "settle" and plan.settle is not None:
-        from benchkit.sweep.settle import CHARGE_TIME_CONSTANTS, charge_wait_for, largest_C_F
+        from benchkit.sweep.settle import plan_charge_wait_s
 
-        st = plan.settle
-        shortest = charge_wait_for(st["min_dwell_s"], st.get("feed_R_ohm"), largest_C_F(sw.part),
-                                   st.get("charge_time_constants", CHARGE_TIME_CONSTANTS),
-                                   st["max_dwell_s"])
-        return ramp + n * shortest, ramp + n * st["max_dwell_s"]
+        shortest = plan_charge_wait_s(plan.settle, sw.part)
+        return ramp + n * shortest, ramp + n * plan.settle["max_dwell_s"]
     d = n * float(plan.dwell_s or 0.0)
     return ramp + d, ramp + d
 

@@ -123,3 +123,15 @@ def test_the_plan_takes_the_feed_resistor_and_refuses_a_bad_one():
     assert "feed_R_ohm" not in parse_plan(_plan({}), "p").settle  # old plans keep their digest
     with pytest.raises(UserError, match="feed_R_ohm"):
         parse_plan(_plan({"feed_R_ohm": -1.0}), "p")
+
+
+def test_the_run_summary_and_the_detector_wait_alike():
+    # the plan's expected duration (benchkit/sweep/summary.py) uses the wait the detector uses
+    from benchkit.sweep.settle import plan_charge_wait_s
+
+    part = load_parts(DEMO_PARTS)["BD-1005"]
+    for extra in ({"feed_R_ohm": 10e3}, {"feed_R_ohm": 10e3, "charge_time_constants": 4}, {}):
+        settle = parse_plan(_plan(extra), "p").settle
+        det = SettleDetector.from_plan(settle)
+        det.start_sample(largest_C_F(part))
+        assert plan_charge_wait_s(settle, part) == det.charge_wait_s
