@@ -38,7 +38,7 @@ class Curve:
                  origin: str = "measured", part_id: str | None = None,
                  sample_id: str | None = None, branch: str | None = None,
                  param_names=None, wideband=None, model_error_F: float = 0.0,
-                 _where: str = "Curve"):
+                 model_choice_u_F=None, _where: str = "Curve"):
         where = _where
         names = param_names if param_names is not None else list(params)
         self.spec = doc.check_model(model, names, where)
@@ -50,6 +50,8 @@ class Curve:
             list(valid_range_V) if valid_range_V is not None else None, self.spec, self.params,
             where)
         self.model_error_F = doc.check_model_error(model_error_F, where)
+        #: the model-choice term, equally spaced over valid_range_V (None: no rival law)
+        self.model_choice_u_F = doc.check_model_choice(model_choice_u_F, where)
         self.conditions = doc.check_conditions(conditions, where)
         self.stats = doc.check_stats(stats, where)
         self.source = doc.check_source(source, where)
@@ -180,16 +182,29 @@ class Curve:
         """Standard uncertainty of C(V) in farads from the parameter covariance (delta
         method: u^2 = J Sigma J^T with J = dC/dp, the model's jacobian), plus the square of
         the model-error term when the fit found that its law does not describe the data
-        (fits.quality). The band covers the fitted curve's uncertainty, not the scatter of
-        single readings."""
+        (fits.quality), plus the square of the model-choice term at V where other laws
+        predict the points as well (model_choice_u_F, linear between its equally spaced
+        values, the end values beyond the range). The band covers the fitted curve's
+        uncertainty, not the scatter of single readings."""
         V = self._check(V, extrapolate)
         # parameters without a variance (fixed, held) add nothing: their columns are skipped
         keep = np.flatnonzero(np.diag(self.covariance) > 0.0)
         J = self.spec.jacobian_of(np.ravel(V), self.params, [self.param_names[i] for i in keep])
         cov = self.covariance[np.ix_(keep, keep)]
         var = np.einsum("ij,jk,ik->i", J, cov, J) + self.model_error_F**2
+        if self.model_choice_u_F is not None:
+            var = var + self.model_choice_at(np.ravel(V)) ** 2
         u = np.sqrt(np.clip(var, 0.0, None)).reshape(np.shape(V))
         return _out(u, V)
+
+    def model_choice_at(self, V) -> np.ndarray:
+        """The model-choice term in farads at bias V (0 where no rival law entered the band)."""
+        V = np.asarray(V, dtype=float)
+        if self.model_choice_u_F is None:
+            return np.zeros(V.shape)
+        lo, hi = self.valid_range_V
+        nodes = np.linspace(lo, hi, len(self.model_choice_u_F))
+        return np.interp(V, nodes, self.model_choice_u_F)
 
     @property
     def stderr(self) -> dict[str, float]:
@@ -223,6 +238,7 @@ class Curve:
             "covariance": self.covariance.tolist(),
             "valid_range_V": list(self.valid_range_V),
             "model_error_F": self.model_error_F,
+            "model_choice_u_F": self.model_choice_u_F,
             "conditions": self.conditions,
             "stats": self.stats,
             "source": self.source,
@@ -245,7 +261,7 @@ class Curve:
                    part_id=d.get("part_id"), sample_id=d.get("sample_id"),
                    branch=d.get("branch"), param_names=d["param_names"],
                    wideband=d.get("wideband"), model_error_F=d.get("model_error_F", 0.0),
-                   _where=where)
+                   model_choice_u_F=d.get("model_choice_u_F"), _where=where)
 
     @classmethod
     def from_json(cls, text: str, where: str = "curve document") -> "Curve":

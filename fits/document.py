@@ -1,11 +1,15 @@
 """The curve document (JSON): its fields and their checks.
 
     {"format": "benchkit-curve", "version": 1, "model", "param_names", "params",
-     "covariance", "valid_range_V", "model_error_F", "conditions", "stats", "source",
-     "origin", "part_id", "sample_id", "branch", "wideband" (optional: fits/wideband.py)}
+     "covariance", "valid_range_V", "model_error_F", "model_choice_u_F", "conditions", "stats",
+     "source", "origin", "part_id", "sample_id", "branch", "wideband" (optional: fits/wideband.py)}
 
 model_error_F (optional, 0 when absent): the model-error term in farads that a fit adds to
 the band when its law does not describe the data (fits.quality); u_C includes it.
+model_choice_u_F (optional, null when absent): the model-choice term in farads, values at
+equally spaced biases from the low to the high end of valid_range_V (straight lines between
+them): where other laws predict the points as well as the chosen one, how far they part
+(fits.fitting._model_choice_profile); u_C includes it.
 
 A curve family (fits/family.py) holds such documents, one per temperature, under
 {"format": "benchkit-curve-family", "version", "interpolation", "temp_range_C", "curves"}.
@@ -148,6 +152,16 @@ def check_model_error(value: Any, where: str) -> float:
     if not _finite(value) or float(value) < 0:
         _fail(where, "model_error_F", f"must be a number >= 0 in farads, got {value!r}")
     return float(value)
+
+
+def check_model_choice(value: Any, where: str) -> list[float] | None:
+    if value is None:
+        return None
+    if (not isinstance(value, (list, tuple)) or len(value) < 2
+            or not all(_finite(x) and float(x) >= 0 for x in value)):
+        _fail(where, "model_choice_u_F", "must be a list of two or more numbers >= 0 in farads "
+                                         f"(or null), got {value!r}")
+    return [float(x) for x in value]
 
 
 def check_conditions(cond: Any, where: str) -> dict:

@@ -28,11 +28,15 @@ How a fit is done, and why:
   win and follow the noise; prediction of unseen points does not reward that.
 - Lack of fit (fits.quality): structured residuals or chi-square far above expectation mark
   the fit as not describing the data and add a model-error term to its band.
-- Model choice as an uncertainty: every other candidate that scored as good as the chosen one
-  (VariantFit.alternatives) describes the data equally well, so the spread between them is
-  not known from the data. Its largest gap on a fine grid, taken as the half-width of a
-  rectangular distribution (/sqrt(3), JCGM 100 4.3.7), is added in quadrature to the
-  lack-of-fit term in model_error_F (stats.model_choice_F, stats.model_choice_rivals).
+- Model choice as an uncertainty: every other candidate whose leave-one-out score the data
+  cannot tell from the chosen one's at k = 2 (within _BAND_SE_RULE standard errors and
+  _BAND_RATIO times the best score; its variants too, VariantFit.alternatives) describes the data as well, so where the two part
+  is not known from the data. Their gap at each bias, taken as the half-width of a
+  rectangular distribution (/sqrt(3), JCGM 100 4.3.7), is the band's model-choice term:
+  a profile over the measured range (Curve.model_choice_u_F, CHOICE_NODES values), wide
+  between sparse readings where laws part and nothing where they agree. The lack-of-fit
+  term stays in model_error_F (stats.model_choice_F is the profile's largest value,
+  stats.model_choice_rivals the laws it spans).
 - Valid range: the measured bias range. Nothing here extrapolates.
 - Curve.stats: the contract keys (r2, rms_pct_C0, max_resid_pct_C0, n_points, aic, bic; the
   percentages of C at the measured bias nearest 0 V) plus k_params, n_points_fit (both
@@ -88,6 +92,16 @@ _SE_RULE = 1.5
 #: law cannot follow) the standard error grows with the misfit and alone would call a law
 #: 10^4 times worse "as good"
 _AS_GOOD_RATIO = 2.0
+#: a rival enters the band's model-choice term when its leave-one-out excess over the chosen
+#: law is within this many standard errors: the data cannot tell the two apart at k = 2, the
+#: coverage factor of the band (a wider net than _SE_RULE, which only picks the law)
+_BAND_SE_RULE = 2.0
+#: ... and a score at most this multiple of the best (as _AS_GOOD_RATIO, doubled for the
+#: wider net): a law that predicts the points several times worse is not one the data
+#: cannot tell apart, however wide its scores' scatter makes their standard error
+_BAND_RATIO = 2.0 * _AS_GOOD_RATIO
+#: values of the model-choice profile, equally spaced over the measured range
+CHOICE_NODES = 9
 #: points of the fine grid on which a candidate's turns are counted
 _GRID = 400
 
@@ -118,9 +132,11 @@ class VariantFit:
     scored: np.ndarray | None = None  # which points' scores count (_scored_points)
     joint: str | None = None  # description when fitted jointly with the other branch
     quality: dict = field(default_factory=dict)
-    #: other variants of the family that predict as well (_choose's "as good"): the data
-    #: cannot tell them from this one (their spread enters the band, _model_choice_F)
+    #: other variants of the family that predict as well (_choose's "band_rival"): the data
+    #: cannot tell them from this one (their spread enters the band, _model_choice_profile)
     alternatives: list = field(default_factory=list)
+    #: the band's model-choice term at CHOICE_NODES biases (_model_choice_profile), or None
+    choice_profile: np.ndarray | None = None
 
     @property
     def dof(self) -> int:
@@ -368,7 +384,10 @@ def _choose(scores: dict[str, np.ndarray], keys: dict[str, tuple], weighted: boo
     for i, n in enumerate(names):
         rows[n] = {"name": n, "loo": means[n], "d_loo": float(d_mean[i]), "se": float(se[i]),
                    "as_good": bool(d_mean[i] <= _SE_RULE * se[i]
-                                   and mean[i] <= _AS_GOOD_RATIO * ref) or n == best, "compact": keys[n][0],
+                                   and mean[i] <= _AS_GOOD_RATIO * ref) or n == best,
+                   "band_rival": bool(d_mean[i] <= _BAND_SE_RULE * se[i]
+                                      and mean[i] <= _BAND_RATIO * ref) or n == best,
+                   "compact": keys[n][0],
                    "k": keys[n][1]}
     good = [n for n in names if rows[n]["as_good"]]
     describing = [n for n in names if keys[n][3]]
@@ -853,13 +872,14 @@ def _assess(vf: VariantFit, data: SweepData) -> None:
 
 
 def _rivals(fits: Mapping, order, table) -> list[VariantFit]:
-    """The fits _choose found as good as the chosen one (order[0]) and, when the chosen one
-    describes the data, describing them too; with their own as-good variants."""
+    """The fits the data cannot tell from the chosen one (order[0]) at k = 2 (_choose's
+    band_rival) and, when the chosen one describes the data, describing them too; with their
+    own such variants."""
     first = fits[order[0]]
     out = []
     for row in table[1:]:
         f = fits.get(row["name"])
-        if f is None or f is first or not row["as_good"]:
+        if f is None or f is first or not row["band_rival"]:
             continue
         if first.quality.get("describes_data", True) and not f.quality.get("describes_data", True):
             continue
@@ -867,24 +887,37 @@ def _rivals(fits: Mapping, order, table) -> list[VariantFit]:
     return out
 
 
-def _model_choice_F(vf: VariantFit, data: SweepData, rivals) -> float:
-    """Standard uncertainty of the choice between laws the data cannot tell apart: the
-    largest |C_rival - C_chosen| over the measured range (a fine grid) as the half-width of
-    a rectangular distribution, u = a/sqrt(3) (JCGM 100:2008 4.3.7). Two laws that predict
-    the unseen points equally well can still part between the points; the band then spans
-    both instead of trusting the one the tie-break picked."""
+def _model_choice_profile(vf: VariantFit, data: SweepData, rivals) -> np.ndarray:
+    """Standard uncertainty of the choice between laws the data cannot tell apart, at
+    CHOICE_NODES biases equally spaced over the measured range: the largest
+    |C_rival - C_chosen| as the half-width of a rectangular distribution, u = a/sqrt(3)
+    (JCGM 100:2008 4.3.7). Two laws that predict the unseen points equally well can still
+    part between the points; the band there then spans both instead of trusting the one the
+    tie-break picked, and stays narrow where they agree. Each node takes the largest gap on
+    a fine grid between its neighbours, so the straight lines between nodes (Curve.u_C)
+    never fall below the gap."""
+    nodes = np.zeros(CHOICE_NODES)
     if not rivals:
-        return 0.0
-    grid = np.linspace(float(data.bias_V.min()), float(data.bias_V.max()), _GRID)
+        return nodes
+    lo, hi = float(data.bias_V.min()), float(data.bias_V.max())
+    if not hi > lo:
+        return nodes
+    grid = np.linspace(lo, hi, _GRID)
     C = vf.spec.C(grid, **vf.params)
-    a = max(float(np.max(np.abs(r.spec.C(grid, **r.params) - C))) for r in rivals)
-    return a / np.sqrt(3.0) if np.isfinite(a) else 0.0
+    gap = np.max([np.abs(r.spec.C(grid, **r.params) - C) for r in rivals], axis=0)
+    if not np.all(np.isfinite(gap)):
+        return nodes
+    pos = (grid - lo) / (hi - lo) * (CHOICE_NODES - 1)
+    for j in range(CHOICE_NODES):
+        near = np.abs(pos - j) <= 1.0
+        nodes[j] = float(np.max(gap[near])) / np.sqrt(3.0)
+    return nodes
 
 
 def _finalise(vf: VariantFit, data: SweepData, rivals=()) -> None:
     """The chosen fit: its lack-of-fit tests and its band's model-error term: when its law
     does not describe the data, the excess scatter (fits.quality.model_error); when other laws
-    or variants predict as well, their spread (_model_choice_F); both in quadrature."""
+    or variants predict as well, their spread at each bias (_model_choice_profile)."""
     _assess(vf, data)
     if "model_error_F" in vf.quality:
         return
@@ -892,11 +925,12 @@ def _finalise(vf: VariantFit, data: SweepData, rivals=()) -> None:
     if not vf.quality["describes_data"]:
         dof = data.n - (vf.k * data.n / vf.n if vf.joint else vf.k)
         lack = quality.model_error(data.C_F - vf.C_model_F, data.sigma_F, int(round(dof)))
-    choice = _model_choice_F(vf, data, list(rivals) + list(vf.alternatives))
-    vf.quality["model_choice_F"] = choice
+    profile = _model_choice_profile(vf, data, list(rivals) + list(vf.alternatives))
+    vf.quality["model_choice_F"] = float(profile.max())
     vf.quality["model_choice_rivals"] = sorted({r.label for r in
                                                 list(rivals) + list(vf.alternatives)})
-    vf.quality["model_error_F"] = float(np.hypot(lack, choice))
+    vf.choice_profile = profile if profile.max() > 0.0 else None
+    vf.quality["model_error_F"] = float(lack)
 
 
 # ---------------------------------------------------------------------------------------
@@ -1075,7 +1109,8 @@ def _curve_from(vf: VariantFit, data: SweepData, meta: Mapping) -> Curve:
                  part_id=meta.get("part_id") or source.get("part_id"),
                  sample_id=meta.get("sample_id") or source.get("sample_id"),
                  branch=meta.get("branch"), param_names=vf.spec.param_names,
-                 model_error_F=model_error)
+                 model_error_F=model_error,
+                 model_choice_u_F=None if vf.choice_profile is None else vf.choice_profile.tolist())
 
 
 def _report(branch, data, vf, curve, ranking, skipped, *, auto, notes=(), combined=False):

@@ -99,6 +99,12 @@ def format_fit_report(branch, data, vf, curve, head: list[str], notes: list[str]
     lines.append(f"Valid bias range: {lo:g} V to {hi:g} V (the measured range; "
                  "no extrapolation)")
     lines.append(f"Verdict: {verdict(s)}")
+    if curve.model_choice_u_F is not None:
+        prof = curve.model_choice_u_F
+        at = lo + (hi - lo) * int(np.argmax(prof)) / (len(prof) - 1)
+        lines.append(f"Band: includes a model-choice term, up to {max(prof):.3g} F near {at:.3g} V, "
+                     "from the laws that predict the points as well and part from this one ("
+                     + ", ".join(s.get("model_choice_rivals") or []) + ")")
     for note in notes:
         lines.append(f"Note: {note}")
     return "\n".join(lines)

@@ -27,10 +27,14 @@ import numpy as np
 
 MAX_SEGMENTS = 16
 SEP = "\x1f"  # part ids hold no control characters (records.check_part_id)
-# valid_lo_V, valid_hi_V, temp_C, origin rank, branch code, model_error_F (store.curve_columns)
-N_NUMBERS = 6
+# valid_lo_V, valid_hi_V, temp_C, origin rank, branch code, model_error_F, then the
+# CHOICE_NODES values of the model-choice term (store.curve_columns)
+CHOICE_NODES = 9
+N_NUMBERS = 6 + CHOICE_NODES
 N_NUMBERS_V2 = 5  # schema version 2 had no model_error_F
+N_NUMBERS_V3 = 6  # schema version 3 had no model-choice term
 MODEL_ERROR = 5  # column of model_error_F in the numbers
+CHOICE = slice(6, 6 + CHOICE_NODES)  # columns of the model-choice term
 
 _INSERT = ("INSERT INTO curve_pack(model, param_names, loose, n, ids, part_keys, part_codes, numbers, "
            "params, covariance) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)")
@@ -82,6 +86,18 @@ def _codes(part_ids: list[str]) -> tuple[str, bytes]:
     keys: dict[str, int] = {}
     codes = np.fromiter((keys.setdefault(p, len(keys)) for p in part_ids), dtype="<i4", count=len(part_ids))
     return SEP.join(keys), codes.tobytes()
+
+
+def choice_numbers(values) -> np.ndarray:
+    """A curve document's model_choice_u_F as CHOICE_NODES values over its valid range
+    (resampled along its straight lines when it has another count; zeros when absent), so
+    the query's band follows the curve's own (fits.Curve.u_C)."""
+    if not values:
+        return np.zeros(CHOICE_NODES)
+    v = np.asarray(values, dtype=float)
+    if v.size == CHOICE_NODES:
+        return v
+    return np.interp(np.linspace(0.0, 1.0, CHOICE_NODES), np.linspace(0.0, 1.0, v.size), v)
 
 
 def append(conn, rows: list[dict]) -> None:
@@ -163,6 +179,24 @@ def migrate_v3(conn, create_statements: list[str]) -> None:
             error = 0.0
         conn.execute("UPDATE curve SET numbers_f64 = ? WHERE id = ?",
                      (numbers + np.array([error], dtype="<f8").tobytes(), cid))
+    rebuild(conn)
+
+
+def migrate_v4(conn) -> None:
+    """Schema version 4: the model-choice term joins each curve's query numbers (read from
+    its document; zeros for curves fitted before it existed), and the pack is rebuilt."""
+    rows = conn.execute("SELECT c.id, c.numbers_f64, d.document FROM curve c "
+                        "JOIN curve_doc d ON d.curve_id = c.id ORDER BY c.id").fetchall()
+    for cid, numbers, document in rows:
+        numbers = bytes(numbers)
+        if len(numbers) != 8 * N_NUMBERS_V3:
+            continue
+        try:
+            profile = choice_numbers(json.loads(document).get("model_choice_u_F"))
+        except (ValueError, TypeError, AttributeError):
+            profile = np.zeros(CHOICE_NODES)
+        conn.execute("UPDATE curve SET numbers_f64 = ? WHERE id = ?",
+                     (numbers + np.asarray(profile, dtype="<f8").tobytes(), cid))
     rebuild(conn)
 
 

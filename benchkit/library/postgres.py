@@ -146,7 +146,14 @@ def _v3(conn) -> None:
 
 
 # MIGRATIONS[i] takes a database from version i to i + 1, as schema.MIGRATIONS does a file.
-MIGRATIONS: list[Callable] = [_v1, _v2, _v3]
+def _v4(conn) -> None:
+    """As schema._v4: the model-choice term among the query numbers."""
+    from benchkit.library import pack
+
+    pack.migrate_v4(conn)
+
+
+MIGRATIONS: list[Callable] = [_v1, _v2, _v3, _v4]
 
 
 def latest_version() -> int:

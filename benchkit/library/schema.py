@@ -51,7 +51,7 @@ def _v1(conn: sqlite3.Connection) -> None:
     params_f64 / covariance_f64 / numbers_f64 hold float64 little-endian copies of the
     parameters (param_names order), the covariance and (valid_lo_V, valid_hi_V, temp_C,
     origin rank in ORIGINS, branch code 0 none / 1 rising / 2 falling / 3 other; from
-    version 3 also model_error_F, pack.N_NUMBERS), so
+    version 3 also model_error_F, from version 4 the model-choice term, pack.N_NUMBERS), so
     the query can load a whole model group as one hex string, exactly (no decimal round trip).
     The documents live in their own table so that the curve rows stay small and a scan of
     them reads little.
@@ -199,7 +199,14 @@ def _v3(conn: sqlite3.Connection) -> None:
 
 # MIGRATIONS[i] takes a file from version i to version i + 1. The PostgreSQL schema
 # (benchkit.library.postgres.MIGRATIONS) has the same versions, step for step.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_v1, _v2, _v3]
+def _v4(conn: sqlite3.Connection) -> None:
+    """The model-choice term among each curve's query numbers (pack.migrate_v4)."""
+    from benchkit.library import pack
+
+    pack.migrate_v4(conn)
+
+
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_v1, _v2, _v3, _v4]
 
 
 def latest_version() -> int:

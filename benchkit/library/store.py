@@ -135,7 +135,8 @@ def curve_columns(doc: dict[str, Any], where: str) -> dict[str, Any]:
     return {
         "numbers_f64": np.array([lo, hi, temp_C, schema.ORIGINS.index(origin),
                                  branch_code(doc.get("branch") or source.get("branch")),
-                                 _number(doc.get("model_error_F"), where, "model_error_F") or 0.0],
+                                 _number(doc.get("model_error_F"), where, "model_error_F") or 0.0,
+                                 *pack.choice_numbers(doc.get("model_choice_u_F"))],
                                 dtype="<f8").tobytes(),  # pack.N_NUMBERS, in this order
         "model": str(model),
         "param_names": json.dumps(names),

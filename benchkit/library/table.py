@@ -28,7 +28,8 @@ def branch_code(branch: str | None) -> int:
 @dataclass
 class ModelGroup:
     """Curves of one model variant: rows into the table, parameters (n, k), the covariance's
-    lower triangle (n, k(k+1)/2, pack.tril order) and each curve's model-error term (n,)."""
+    lower triangle (n, k(k+1)/2, pack.tril order), each curve's model-error term (n,), its
+    valid range (n,) twice and its model-choice term at pack.CHOICE_NODES biases (n, m)."""
 
     model: str
     param_names: tuple[str, ...]
@@ -37,10 +38,14 @@ class ModelGroup:
     P: np.ndarray
     cov: np.ndarray
     model_error: np.ndarray
+    lo_V: np.ndarray
+    hi_V: np.ndarray
+    choice: np.ndarray
 
     def evaluate(self, V: float, sel: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """C and its standard uncertainty for the group's curves at V (those where sel is True,
-        when given), with the band fits.Curve.u_C gives: u_C^2 = J Sigma J^T + model_error_F^2.
+        when given), with the band fits.Curve.u_C gives: u_C^2 = J Sigma J^T + model_error_F^2
+        + u_choice(V)^2, the last linear between the curve's equally spaced values.
 
         J = dC/dp by central differences over the whole stack at once; the step follows
         fits.models.base.ModelSpec.jacobian (1e-6 of the parameter, or of the typical size of
@@ -52,6 +57,9 @@ class ModelGroup:
         P_all = self.P if sel is None else self.P[sel]
         tri = self.cov if sel is None else self.cov[sel]
         err = self.model_error if sel is None else self.model_error[sel]
+        choice = self.choice if sel is None else self.choice[sel]
+        lo = self.lo_V if sel is None else self.lo_V[sel]
+        hi = self.hi_V if sel is None else self.hi_V[sel]
         cols = {n: P_all[:, j] for j, n in enumerate(names)}
         nrow = P_all.shape[0]
         ti, tj = pack.tril(k)
@@ -79,7 +87,13 @@ class ModelGroup:
             use = np.array([a in on and b in on for a, b in zip(ti.tolist(), tj.tolist())], dtype=bool)
             weight = np.where(ti == tj, 1.0, 2.0)[use]
             var = np.einsum("np,np,p->n", J[:, ti[use]] * J[:, tj[use]], tri[:, use], weight)
-            u = np.sqrt(np.clip(var + err * err, 0.0, None))
+            m = choice.shape[1]
+            pos = np.clip((V - lo) / (hi - lo) * (m - 1), 0.0, m - 1)
+            j = np.minimum(pos.astype(np.int64), m - 2)
+            f = pos - j
+            at = np.arange(nrow)
+            u_choice = (1.0 - f) * choice[at, j] + f * choice[at, j + 1]
+            u = np.sqrt(np.clip(var + err * err + u_choice * u_choice, 0.0, None))
             u[np.any(np.isnan(tri), axis=1)] = np.nan  # no covariance stored
         return C, u
 
@@ -188,7 +202,8 @@ def load_table(conn, generation: int) -> CurveTable:
         except UserError:
             continue  # a model this benchkit does not know: its curves stay NaN (not covered)
         groups.append(ModelGroup(seg.model, seg.param_names, spec, rows, seg.params[keep], seg.covariance[keep],
-                                 numbers[:, pack.MODEL_ERROR]))
+                                 numbers[:, pack.MODEL_ERROR], numbers[:, 0], numbers[:, 1],
+                                 numbers[:, pack.CHOICE]))
     # curves whose parameters are not plain numbers: evaluated one by one through fits.Curve
     loose = []
     if loose_rows:

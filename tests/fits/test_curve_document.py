@@ -15,8 +15,8 @@ from hypothesis import strategies as st
 from fits import Curve, CurveDocumentError, OutOfRange, fit_sweep, models
 
 CONTRACT_KEYS = {"format", "version", "model", "param_names", "params", "covariance",
-                 "valid_range_V", "model_error_F", "conditions", "stats", "source", "origin", "part_id",
-                 "sample_id", "branch"}
+                 "valid_range_V", "model_error_F", "model_choice_u_F", "conditions", "stats", "source",
+                 "origin", "part_id", "sample_id", "branch"}
 
 
 @pytest.fixture(scope="module")

@@ -264,6 +264,58 @@ def test_migration_to_v3_brings_the_model_error_into_the_query(library_target):
     with Library(library_target) as lib:
         version = (lib._db.conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0]
                    if lib.kind == "postgresql" else lib._db.conn.execute("PRAGMA user_version").fetchone()[0])
-        assert int(version) == schema.latest_version() == 3
+        assert int(version) == schema.latest_version() == 4
         [r] = lib.query(3.0)
         assert r.u_C_F == pytest.approx(float(curve.u_C(3.0)), rel=1e-6)
+
+
+def _sparse_auto_curve():
+    # 11 readings of a stretched-exponential peak (invented numbers, 0.3 % scatter, seeded):
+    # auto leaves rival laws within two standard errors, so the band carries a model-choice
+    # term that varies with bias (fits.Curve.model_choice_u_F)
+    from fits import fit_sweep
+
+    V = np.linspace(0.0, 25.0, 11)
+    C = 0.5e-6 + 4.2e-6 * np.exp(-np.abs((V - 0.8) / 9.0) ** 1.6)
+    rng = np.random.default_rng(3)
+    curve = fit_sweep(V, C * (1 + 0.003 * rng.standard_normal(V.size)), 0.003 * C).curve
+    assert curve.model_choice_u_F is not None and max(curve.model_choice_u_F) > 0
+    return curve
+
+
+def test_band_includes_the_model_choice_term_at_each_bias(lib):
+    # The query's vectorised band must be the curve's own at every bias, the model-choice
+    # profile included (fits.Curve.u_C is the reference: u_C^2 = J Sigma J^T + s_m^2 + u_choice^2,
+    # GUM 5.1.2 for the first term, JCGM 100 4.3.7 for the last), between its nodes as at them.
+    curve = _sparse_auto_curve()
+    curve.part_id = "BD-1001"
+    lib.add_curve(curve)
+    lo, hi = curve.valid_range_V
+    for bias in np.linspace(lo, hi, 13):
+        [r] = [q for q in lib.query(float(bias)) if q.part_id == "BD-1001"]
+        assert r.u_C_F == pytest.approx(float(curve.u_C(bias)), rel=1e-6)
+    # and the term is there: somewhere the band is wider than the fit's own part
+    grid = np.linspace(lo, hi, 50)
+    assert np.max(curve.model_choice_at(grid)) > 0.1 * np.max(curve.u_C(grid))
+
+
+def test_migration_to_v4_brings_the_model_choice_term_into_the_query(library_target):
+    # A schema-3 library (six query numbers a curve, no model-choice term) is migrated on open,
+    # on either backend: the term is read back from each curve's document, so the query's band
+    # is the curve's own again (fits.Curve.u_C, the reference).
+    from benchkit.library import Library, schema
+
+    curve = _sparse_auto_curve()
+    with Library(library_target) as lib:
+        lib.add_part({"id": "BD-1001", "nominal_C_F": 10e-6, "rated_V": 6.3})
+        lib.add_curve(curve, "BD-1001")
+        with lib._db.write() as conn:  # what a version-3 library held
+            conn.execute("UPDATE curve SET numbers_f64 = substr(numbers_f64, 1, 48)")
+            if lib.kind == "postgresql":
+                conn.execute("UPDATE meta SET value = '3' WHERE key = 'schema_version'")
+            else:
+                conn.execute("PRAGMA user_version = 3")
+    with Library(library_target) as lib:
+        for bias in (0.5, 2.0, 12.0):
+            [r] = lib.query(bias)
+            assert r.u_C_F == pytest.approx(float(curve.u_C(bias)), rel=1e-6)
