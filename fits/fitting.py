@@ -241,6 +241,10 @@ def fit_sweep(bias_V, C_F, sigma_F=None, model="auto", branch: str | None = None
     fits_by_family: dict[str, VariantFit] = {}
     skipped: dict[str, str] = {}
     for spec in families:
+        why = _refuted_by_freer_law(spec, fits_by_family, data)
+        if why:
+            skipped[spec.name] = why
+            continue
         try:
             fits_by_family[spec.name] = _fit_family(spec, data)
         except _CannotFit as exc:
@@ -307,6 +311,11 @@ def fit_branches(bias_V, C_F, branch, sigma_F=None, model="auto", *, shared_shap
     results: dict[str, dict[str, VariantFit]] = {}
     skipped: dict[str, str] = {}
     for spec in families:
+        whys = [_refuted_by_freer_law(spec, {n: r[b] for n, r in results.items()}, datas[b])
+                for b in BRANCHES]
+        if all(whys):
+            skipped[spec.name] = "; ".join(f"{b} branch: {w}" for b, w in zip(BRANCHES, whys))
+            continue
         try:
             if spec.name == "tanh" and shared_shape:
                 results[spec.name] = _fit_tanh_shared(datas["rising"], datas["falling"])
@@ -437,7 +446,8 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
     for variant in variants:
         if fits and _same_as_previous(variant, fits[-1]):
             continue  # the previous fit already ended with these parameters held there
-        if fits and _decisively_worse(variant, fits[-1], data):
+        if fits and _decisively_worse(variant, fits[-1], data,
+                                      floor=1.0 if data.sigma_F is not None else 0.0):
             continue  # the freer fit shows the data refute what this variant fixes
         try:
             vf = _fit_variant(variant, data, start, chained)
@@ -500,11 +510,13 @@ def _flat_first(fits_by_family: dict, data: SweepData, order, table):
 
 
 #: a simpler variant is not fitted when the freer one's leave-one-out score is below this
-#: fraction of what the simpler one must at least score (twice _AS_GOOD_RATIO: a margin)
-_SCREEN_RATIO = 2.0 * _AS_GOOD_RATIO
+#: fraction of what the simpler one must at least score (twice _BAND_RATIO, the widest of
+#: the limits it must exclude: a margin for the quadratic estimate)
+_SCREEN_RATIO = 2.0 * _BAND_RATIO
 
 
-def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData) -> bool:
+def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData,
+                      floor: float = 0.0) -> bool:
     """Cheap screening of a simpler variant of the family before fitting it.
 
     Fixing parameters the freer fit determined at other values raises chi-square by about
@@ -514,7 +526,8 @@ def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData) -> bo
     freer fit describes the data and (chi2 + Delta/2)/n, half the estimate as a margin
     for the approximation, exceeds _SCREEN_RATIO times its own score, the simpler variant
     could be neither as good (_AS_GOOD_RATIO) nor the best-scoring one that describes the
-    data: _choose would never pick it, and its fit is skipped."""
+    data: _choose would never pick it, and its fit is skipped. floor: the score the bound
+    must also pass (1 for weighted data, as _choose's ratio limits use max(best, 1))."""
     if prev.spec is not variant.spec or prev.covar_scale <= 0:
         return False
     names = [n for n in variant.fixed if n in prev.free_names]
@@ -530,7 +543,40 @@ def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData) -> bo
         delta = float(d @ np.linalg.solve(cov_u, d))
     except np.linalg.LinAlgError:
         return False
-    return bool((prev.chi2 + 0.5 * delta) / prev.n > _SCREEN_RATIO * prev.loo)
+    return bool((prev.chi2 + 0.5 * delta) / prev.n > _SCREEN_RATIO * max(prev.loo, floor))
+
+
+#: a family that is a special case of another (landau: genjohnson with m = 1/3 and the peak
+#: at 0 V, C0 = C_pk - C_fl and C_p = C_fl) -> (the freer family, what it fixes there)
+_NESTED_IN = {"landau": ("genjohnson", {"m": 1.0 / 3.0, "V_pk_V": 0.0})}
+
+
+def _refuted_by_freer_law(spec: ModelSpec, fitted: Mapping, data: SweepData) -> str:
+    """Why a family need not be fitted at all, or "": when it is a special case of a family
+    fitted already (_NESTED_IN) and that fit refutes the special values, _decisively_worse's
+    bound applies across the two: every variant of the nested law has a chi-square at least
+    that of the freer law with those values fixed, so its leave-one-out score is above
+    _SCREEN_RATIO times the freer fit's (and, weighted, times max(1, it)), and the nested
+    law could be neither chosen, nor as good, nor a rival in the band (_BAND_RATIO). Only
+    a freer fit that keeps every parameter the nested law has free (landau's C_p: the floor)
+    can bound it."""
+    nest = _NESTED_IN.get(spec.name)
+    if nest is None or nest[0] not in fitted:
+        return ""
+    freer = fitted[nest[0]]
+    if freer.joint or any(n not in freer.free_names for n in ("C_fl_F", "m")):
+        return ""
+    fixed = {n: v for n, v in nest[1].items() if n in freer.free_names}
+    if any(abs(freer.params[n] - v) > 0.0 for n, v in nest[1].items() if n not in fixed):
+        return ""  # fixed at another value in the freer fit: no bound
+    variant = Variant(freer.spec, fixed, f"{freer.spec.name} with {spec.name}'s values")
+    weighted = data.sigma_F is not None
+    if not _decisively_worse(variant, freer, data, floor=1.0 if weighted else 0.0):
+        return ""
+    return (f"it is {freer.spec.name} with "
+            + ", ".join(f"{n} = {v:.4g}" for n, v in nest[1].items())
+            + f", values the {freer.label} fit refutes (its leave-one-out score would be over "
+            f"{_SCREEN_RATIO:g} times that fit's)")
 
 
 def _same_as_previous(variant: Variant, prev: VariantFit) -> bool:
