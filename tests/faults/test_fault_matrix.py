@@ -37,6 +37,7 @@ from instruments.sim.faults import DEFAULT_ROLE, KINDS
 from fault_kit import (PARTS, flags_besides_level, flags_of, keep_benches, planned_keys,
                        read_meta, read_rows, row_keys, write_plan)
 
+CLEAN_IO_TIMEOUT_S = "5"
 IO_TIMEOUT_S = "0.3"  # real seconds a swallowed reply costs; the late reply comes after 0.6 s
 OPTIONS = {"late": ":delay=0.6", "temp-drift": ":rate=30"}  # 30 degC/min: beyond 2 degC in a sample
 EXPECTED = {  # kind -> (exit code, flag the recovered points carry)
@@ -59,9 +60,9 @@ def test_the_matrix_covers_every_fault_kind():
     assert set(EXPECTED) | set(CHAMBER_KINDS) == set(KINDS)
 
 
-def measure(tmp_path, plan, out, *faults):
+def measure(tmp_path, plan, out, *faults, io_timeout_s=IO_TIMEOUT_S):
     argv = ["measure", "--sim", "--virtual-clock", "--plan", str(plan), "--out", str(out),
-            "--io-timeout-s", IO_TIMEOUT_S]
+            "--io-timeout-s", io_timeout_s]
     for f in faults:
         argv += ["--fault", f]
     return main(argv)
@@ -75,7 +76,9 @@ def clean_run(tmp_path_factory):
     mp = pytest.MonkeyPatch()
     try:
         with keep_benches(mp) as made:
-            code = measure(tmp, plan, tmp / "run")
+            # a reply slower than the fault runs' short timeout on a loaded machine would be
+            # retried and flagged here; without faults nothing needs to time out quickly
+            code = measure(tmp, plan, tmp / "run", io_timeout_s=CLEAN_IO_TIMEOUT_S)
     finally:
         mp.undo()
     assert code == 0
@@ -83,7 +86,8 @@ def clean_run(tmp_path_factory):
     counts = {role: bench.faults.count(role) for role in ("meter", "supply", "scanner", "thermometer")}
     rows = read_rows(tmp / "run")
     assert row_keys(rows) == planned_keys(plan)
-    assert all(flags_besides_level(r, PARTS[r["part_id"]].nominal_C_F) == "" for r in rows)
+    flags = [flags_besides_level(r, PARTS[r["part_id"]].nominal_C_F) for r in rows]
+    assert all(f == "" for f in flags), flags
     return plan, counts
 
 
