@@ -161,43 +161,39 @@ def rebuild(conn) -> None:
         append(conn, group)
 
 
+def _extend_numbers(conn, old_count: int, extra) -> None:
+    """Append to every curve's query numbers that has old_count of them the values
+    extra(document) gives (read from the curve's document; a document it cannot read gives
+    extra(None)), then pack again: how a migration brings a new query number in."""
+    rows = conn.execute("SELECT c.id, c.numbers_f64, d.document FROM curve c "
+                        "JOIN curve_doc d ON d.curve_id = c.id ORDER BY c.id").fetchall()
+    for cid, numbers, document in rows:
+        numbers = bytes(numbers)
+        if len(numbers) != 8 * old_count:
+            continue
+        try:
+            values = extra(json.loads(document))
+        except (ValueError, TypeError, AttributeError):
+            values = extra(None)
+        conn.execute("UPDATE curve SET numbers_f64 = ? WHERE id = ?",
+                     (numbers + np.asarray(values, dtype="<f8").tobytes(), cid))
+    rebuild(conn)
+
+
 def migrate_v3(conn, create_statements: list[str]) -> None:
     """Schema version 3: model_error_F joins each curve's query numbers (read from its
     document), and the pack takes its present layout (part codes, covariance triangle)."""
     conn.execute("DROP TABLE curve_pack")
     for statement in create_statements:
         conn.execute(statement)
-    rows = conn.execute("SELECT c.id, c.numbers_f64, d.document FROM curve c "
-                        "JOIN curve_doc d ON d.curve_id = c.id ORDER BY c.id").fetchall()
-    for cid, numbers, document in rows:
-        numbers = bytes(numbers)
-        if len(numbers) != 8 * N_NUMBERS_V2:
-            continue
-        try:
-            error = float(json.loads(document).get("model_error_F") or 0.0)
-        except (ValueError, TypeError, AttributeError):
-            error = 0.0
-        conn.execute("UPDATE curve SET numbers_f64 = ? WHERE id = ?",
-                     (numbers + np.array([error], dtype="<f8").tobytes(), cid))
-    rebuild(conn)
+    _extend_numbers(conn, N_NUMBERS_V2,
+                    lambda doc: [float((doc or {}).get("model_error_F") or 0.0)])
 
 
 def migrate_v4(conn) -> None:
     """Schema version 4: the model-choice term joins each curve's query numbers (read from
     its document; zeros for curves fitted before it existed), and the pack is rebuilt."""
-    rows = conn.execute("SELECT c.id, c.numbers_f64, d.document FROM curve c "
-                        "JOIN curve_doc d ON d.curve_id = c.id ORDER BY c.id").fetchall()
-    for cid, numbers, document in rows:
-        numbers = bytes(numbers)
-        if len(numbers) != 8 * N_NUMBERS_V3:
-            continue
-        try:
-            profile = choice_numbers(json.loads(document).get("model_choice_u_F"))
-        except (ValueError, TypeError, AttributeError):
-            profile = np.zeros(CHOICE_NODES)
-        conn.execute("UPDATE curve SET numbers_f64 = ? WHERE id = ?",
-                     (numbers + np.asarray(profile, dtype="<f8").tobytes(), cid))
-    rebuild(conn)
+    _extend_numbers(conn, N_NUMBERS_V3, lambda doc: choice_numbers((doc or {}).get("model_choice_u_F")))
 
 
 def load(conn) -> list[Segment]:

@@ -237,6 +237,14 @@ def test_band_includes_the_model_error_term(lib):
         assert r.u_C_F > 1.05 * fit_only  # the term is there, not just the fit's own part
 
 
+def _set_schema_version(lib, conn, version: int) -> None:
+    """Mark an open library as an older schema version (how the migrations find it)."""
+    if lib.kind == "postgresql":
+        conn.execute(f"UPDATE meta SET value = '{int(version)}' WHERE key = 'schema_version'")
+    else:
+        conn.execute(f"PRAGMA user_version = {int(version)}")
+
+
 def test_migration_to_v3_brings_the_model_error_into_the_query(library_target):
     # A schema-2 library (query numbers without model_error_F, the old pack layout) is migrated
     # on open, on either backend: afterwards the query's band is the curve's own again
@@ -257,10 +265,7 @@ def test_migration_to_v3_brings_the_model_error_into_the_query(library_target):
                          f"param_names TEXT NOT NULL, loose INTEGER NOT NULL, n INTEGER NOT NULL, ids {blob} NOT NULL, "
                          f"part_ids TEXT NOT NULL, numbers {blob} NOT NULL, params {blob}, covariance {blob})")
             conn.execute("UPDATE curve SET numbers_f64 = substr(numbers_f64, 1, 40)")
-            if lib.kind == "postgresql":
-                conn.execute("UPDATE meta SET value = '2' WHERE key = 'schema_version'")
-            else:
-                conn.execute("PRAGMA user_version = 2")
+            _set_schema_version(lib, conn, 2)
     with Library(library_target) as lib:
         version = (lib._db.conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0]
                    if lib.kind == "postgresql" else lib._db.conn.execute("PRAGMA user_version").fetchone()[0])
@@ -311,10 +316,7 @@ def test_migration_to_v4_brings_the_model_choice_term_into_the_query(library_tar
         lib.add_curve(curve, "BD-1001")
         with lib._db.write() as conn:  # what a version-3 library held
             conn.execute("UPDATE curve SET numbers_f64 = substr(numbers_f64, 1, 48)")
-            if lib.kind == "postgresql":
-                conn.execute("UPDATE meta SET value = '3' WHERE key = 'schema_version'")
-            else:
-                conn.execute("PRAGMA user_version = 3")
+            _set_schema_version(lib, conn, 3)
     with Library(library_target) as lib:
         for bias in (0.5, 2.0, 12.0):
             [r] = lib.query(bias)
