@@ -446,8 +446,7 @@ def _fit_family(spec: ModelSpec, data: SweepData) -> VariantFit:
     for variant in variants:
         if fits and _same_as_previous(variant, fits[-1]):
             continue  # the previous fit already ended with these parameters held there
-        if fits and _decisively_worse(variant, fits[-1], data,
-                                      floor=1.0 if data.sigma_F is not None else 0.0):
+        if fits and _decisively_worse(variant, fits[-1], data):
             continue  # the freer fit shows the data refute what this variant fixes
         try:
             vf = _fit_variant(variant, data, start, chained)
@@ -515,8 +514,7 @@ def _flat_first(fits_by_family: dict, data: SweepData, order, table):
 _SCREEN_RATIO = 2.0 * _BAND_RATIO
 
 
-def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData,
-                      floor: float = 0.0) -> bool:
+def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData) -> bool:
     """Cheap screening of a simpler variant of the family before fitting it.
 
     Fixing parameters the freer fit determined at other values raises chi-square by about
@@ -525,9 +523,10 @@ def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData,
     leave-one-out score is at least chi-square / n (every 1/(1 - h_ii) >= 1). So when the
     freer fit describes the data and (chi2 + Delta/2)/n, half the estimate as a margin
     for the approximation, exceeds _SCREEN_RATIO times its own score, the simpler variant
-    could be neither as good (_AS_GOOD_RATIO) nor the best-scoring one that describes the
-    data: _choose would never pick it, and its fit is skipped. floor: the score the bound
-    must also pass (1 for weighted data, as _choose's ratio limits use max(best, 1))."""
+    could be neither as good (_AS_GOOD_RATIO), nor a rival in the band (_BAND_RATIO), nor the
+    best-scoring one that describes the data: _choose would never pick it, and its fit is
+    skipped. With sigma given the bound must also pass _SCREEN_RATIO times 1, as _choose's
+    ratio limits then use max(best, 1)."""
     if prev.spec is not variant.spec or prev.covar_scale <= 0:
         return False
     names = [n for n in variant.fixed if n in prev.free_names]
@@ -543,12 +542,15 @@ def _decisively_worse(variant: Variant, prev: VariantFit, data: SweepData,
         delta = float(d @ np.linalg.solve(cov_u, d))
     except np.linalg.LinAlgError:
         return False
+    floor = 1.0 if data.sigma_F is not None else 0.0
     return bool((prev.chi2 + 0.5 * delta) / prev.n > _SCREEN_RATIO * max(prev.loo, floor))
 
 
 #: a family that is a special case of another (landau: genjohnson with m = 1/3 and the peak
-#: at 0 V, C0 = C_pk - C_fl and C_p = C_fl) -> (the freer family, what it fixes there)
-_NESTED_IN = {"landau": ("genjohnson", {"m": 1.0 / 3.0, "V_pk_V": 0.0})}
+#: at 0 V, C0 = C_pk - C_fl and C_p = C_fl) -> (the freer family, what it fixes there, what
+#: the freer fit must leave free to bound every variant of the nested one: landau's C_p is
+#: genjohnson's floor)
+_NESTED_IN = {"landau": ("genjohnson", {"m": 1.0 / 3.0, "V_pk_V": 0.0}, ("C_fl_F",))}
 
 
 def _refuted_by_freer_law(spec: ModelSpec, fitted: Mapping, data: SweepData) -> str:
@@ -556,25 +558,24 @@ def _refuted_by_freer_law(spec: ModelSpec, fitted: Mapping, data: SweepData) -> 
     fitted already (_NESTED_IN) and that fit refutes the special values, _decisively_worse's
     bound applies across the two: every variant of the nested law has a chi-square at least
     that of the freer law with those values fixed, so its leave-one-out score is above
-    _SCREEN_RATIO times the freer fit's (and, weighted, times max(1, it)), and the nested
-    law could be neither chosen, nor as good, nor a rival in the band (_BAND_RATIO). Only
-    a freer fit that keeps every parameter the nested law has free (landau's C_p: the floor)
-    can bound it."""
+    _SCREEN_RATIO times the freer fit's, and the nested law could be neither chosen, nor as
+    good, nor a rival in the band. Only a freer fit that keeps free every parameter the
+    nested law has free can bound it."""
     nest = _NESTED_IN.get(spec.name)
     if nest is None or nest[0] not in fitted:
         return ""
-    freer = fitted[nest[0]]
-    if freer.joint or any(n not in freer.free_names for n in ("C_fl_F", "m")):
+    family, values, must_be_free = nest
+    freer = fitted[family]
+    if freer.joint or any(n not in freer.free_names for n in must_be_free):
         return ""
-    fixed = {n: v for n, v in nest[1].items() if n in freer.free_names}
-    if any(abs(freer.params[n] - v) > 0.0 for n, v in nest[1].items() if n not in fixed):
-        return ""  # fixed at another value in the freer fit: no bound
+    fixed = {n: v for n, v in values.items() if n in freer.free_names}
+    if any(abs(freer.params[n] - v) > 0.0 for n, v in values.items() if n not in fixed):
+        return ""  # fixed or held at another value in the freer fit: no bound
     variant = Variant(freer.spec, fixed, f"{freer.spec.name} with {spec.name}'s values")
-    weighted = data.sigma_F is not None
-    if not _decisively_worse(variant, freer, data, floor=1.0 if weighted else 0.0):
+    if not _decisively_worse(variant, freer, data):
         return ""
     return (f"it is {freer.spec.name} with "
-            + ", ".join(f"{n} = {v:.4g}" for n, v in nest[1].items())
+            + ", ".join(f"{n} = {v:.4g}" for n, v in values.items())
             + f", values the {freer.label} fit refutes (its leave-one-out score would be over "
             f"{_SCREEN_RATIO:g} times that fit's)")
 

@@ -12,10 +12,10 @@ The ratio is curve_fit's rate over fit_sweep's: how many bare fits one full fit 
 
 "auto" (every family, each with its variants, chosen by leave-one-out prediction with the
 lack-of-fit tests; a family that is a special case of another is not fitted when that one's
-fit refutes it, and the run lists it) is timed too, in milliseconds of CPU time (time.process_time) per sweep,
-the median of repeated single fits, beside its target of 10 ms: CPU time, because on a
-machine shared with other jobs the wall clock also counts their time slices. The wall-clock
-rate is reported beside it.
+fit refutes it, and the run lists it) is timed too, in milliseconds of CPU time
+(time.process_time) per sweep, the median of repeated single fits, beside its target of
+10 ms: CPU time, because on a machine shared with other jobs the wall clock also counts
+their time slices. The wall-clock rate is reported beside it.
 """
 
 from __future__ import annotations

@@ -29,7 +29,7 @@ MAX_SEGMENTS = 16
 SEP = "\x1f"  # part ids hold no control characters (records.check_part_id)
 # valid_lo_V, valid_hi_V, temp_C, origin rank, branch code, model_error_F, then the
 # CHOICE_NODES values of the model-choice term (store.curve_columns)
-CHOICE_NODES = 9
+CHOICE_NODES = 9  # part of the schema; the same count fits writes (fits.fitting.CHOICE_NODES)
 N_NUMBERS = 6 + CHOICE_NODES
 N_NUMBERS_V2 = 5  # schema version 2 had no model_error_F
 N_NUMBERS_V3 = 6  # schema version 3 had no model-choice term

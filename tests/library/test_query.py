@@ -292,7 +292,11 @@ def test_band_includes_the_model_choice_term_at_each_bias(lib):
     # The query's vectorised band must be the curve's own at every bias, the model-choice
     # profile included (fits.Curve.u_C is the reference: u_C^2 = J Sigma J^T + s_m^2 + u_choice^2,
     # GUM 5.1.2 for the first term, JCGM 100 4.3.7 for the last), between its nodes as at them.
+    from benchkit.library import pack
+
     curve = _sparse_auto_curve()
+    # the fits write as many values as the schema stores: the library keeps them as they are
+    assert len(curve.model_choice_u_F) == pack.CHOICE_NODES
     curve.part_id = "BD-1001"
     lib.add_curve(curve)
     lo, hi = curve.valid_range_V
