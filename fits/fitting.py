@@ -597,9 +597,10 @@ def _same_as_previous(variant: Variant, prev: VariantFit) -> bool:
 
 
 def _linear_loo(variants: list[Variant], data: SweepData) -> dict[int, tuple]:
-    """index -> (squared weighted leave-one-out residuals, coefficients) of each polynomial
-    variant that the data determine: r_i/(1 - h_ii) from its QR solution, exact for a
-    linear model (no refit per left-out point)."""
+    """index -> (squared weighted leave-one-out residuals, (R, Q^T y) of its coefficients)
+    of each polynomial variant that the data determine: r_i/(1 - h_ii) from its QR
+    solution, exact for a linear model (no refit per left-out point); the coefficients are
+    solved only for a variant the choice looks at."""
     w = data.weights
     yw = data.C_F * w
     typical = float(np.sqrt(np.mean(yw**2)))
@@ -631,8 +632,7 @@ def _linear_loo(variants: list[Variant], data: SweepData) -> dict[int, tuple]:
         d = np.abs(np.diag(R))
         if d.min() < _MIN_RCOND * d.max():
             continue
-        out[i] = (_loo_from_hat(Res[:, k - 1], H[:, k - 1], typical),
-                  solve_triangular(R, qb[:k]))
+        out[i] = (_loo_from_hat(Res[:, k - 1], H[:, k - 1], typical), (R, qb[:k]))
     return out
 
 
@@ -655,7 +655,7 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
         if variants[i].spec.degree == 0:
             return None  # a constant cannot turn
         dense = np.zeros(variants[i].spec.degree + 1)
-        dense[list(variants[i].spec.powers)] = coefs[i]
+        dense[list(variants[i].spec.powers)] = solve_triangular(*coefs[i], check_finite=False)
         return np.polynomial.polynomial.polyval(grid, dense), grid * Vs
 
     return variants[_smooth_choice(scores, keys, data, curve)]
@@ -705,13 +705,13 @@ def _spline_choice(variants: list[Variant], data: SweepData) -> Variant:
         qb = Qn.T @ yw
         scores[i] = _loo_from_hat(yw - Qn @ qb, np.sum(Qn * Qn, axis=1), typical)[scored]
         keys[i] = (True, k, 0, True)
-        coef = solve_triangular(Rn, qb) / norms
-        curves[i] = (knots, coef)
+        curves[i] = (knots, Rn, qb, norms)  # solved only for a count the choice looks at
     if not scores:
         return variants[0]
 
     def curve(i):
-        knots, coef = curves[i]
+        knots, Rn, qb, norms = curves[i]
+        coef = solve_triangular(Rn, qb, check_finite=False) / norms
         return variants[i].spec.power_basis(grid, knots) @ coef, grid
 
     return variants[_smooth_choice(scores, keys, data, curve)]

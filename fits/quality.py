@@ -104,9 +104,11 @@ def turns(C_on_grid, tol_F: float = 0.0, rel_tol: float = 1e-9) -> int:
 def _zigzag(values, tol) -> int:
     """Direction changes of a sequence, a move counting once it exceeds tol from the last
     extreme (tol per element: the larger of the two elements' tolerances applies)."""
-    count, direction = 0, 0
+    n = len(values)
+    values, tol = np.asarray(values, dtype=float).tolist(), np.asarray(tol, dtype=float).tolist()
+    count, direction = 0, 0  # (Python floats: the walk is element by element)
     ext = 0  # index of the last extreme
-    for j in range(1, values.size):
+    for j in range(1, n):
         step = values[j] - values[ext]
         if direction >= 0 and values[j] >= values[ext]:
             if direction == 0 and step > max(tol[j], tol[ext]):

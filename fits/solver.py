@@ -101,13 +101,13 @@ def solve(resid: Callable[[np.ndarray], np.ndarray], jac: Callable[[np.ndarray],
         lo_i, hi_i = lo[idx], hi[idx]
 
         def full(p):
-            y = np.array(base)
+            y = base.copy()
             y[idx] = np.minimum(np.maximum(p, lo_i), hi_i)
             return y, (p >= lo_i) & (p <= hi_i)
 
         def f(p):
             r = resid(full(p)[0])
-            if not np.all(np.isfinite(r)):
+            if not np.isfinite(r).all():
                 raise SolveError("the residual is not finite at a trial step")
             return r
 
@@ -118,7 +118,7 @@ def solve(resid: Callable[[np.ndarray], np.ndarray], jac: Callable[[np.ndarray],
                 J = np.asarray(jac(y), dtype=float)[:, idx]
                 if not inside.all():
                     J = J * inside[None, :]
-                if not np.all(np.isfinite(J)):
+                if not np.isfinite(J).all():
                     raise SolveError("the jacobian is not finite at a trial step")
                 return J
 

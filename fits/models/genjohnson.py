@@ -94,18 +94,19 @@ class GenJohnsonModel(ModelSpec):
         Vw, m, Vp = float(params["V_w_V"]), float(params["m"]), float(params["V_pk_V"])
         Vk = Vw * np.sqrt(m)
         u = (V - Vp) / Vk
-        L = np.log1p(u * u)
+        uu = u * u
+        L = np.log1p(uu)
         g = np.exp(-m * L)
         A = C_pk - C_fl
-        dg_du = -2.0 * m * u * g / (1.0 + u * u)
-        d_Vk = -A * dg_du * u / Vk  # dC/dV_k at fixed m
-        # V_k = V_w*sqrt(m): dC/dV_w = dC/dV_k*sqrt(m); dC/dm|V_w = dC/dm|V_k + dC/dV_k*V_k/(2m)
+        t = (2.0 * m * A) * g / (1.0 + uu)  # -A*dg/du = t*u
+        # dC/dV_k at fixed m is t*u^2/V_k. V_k = V_w*sqrt(m): dC/dV_w = dC/dV_k*sqrt(m);
+        # dC/dm|V_w = dC/dm|V_k + dC/dV_k*V_k/(2m), with dC/dm|V_k = -A*g*L
         out = np.empty((V.size, 5))
         out[:, 0] = g
         out[:, 1] = 1.0 - g
-        out[:, 2] = d_Vk * np.sqrt(m)
-        out[:, 3] = d_Vk * (Vk / (2.0 * m)) - A * g * L  # -A*g*L: dC/dm at fixed V_k
-        out[:, 4] = -A * dg_du / Vk
+        out[:, 2] = t * uu * (np.sqrt(m) / Vk)
+        out[:, 3] = t * uu / (2.0 * m) - A * g * L
+        out[:, 4] = t * u / Vk
         return out
 
     def spice_charge(self, params, v):

@@ -96,10 +96,15 @@ class SplineModel(TableModel):
         it and solves only the chosen one in knot values."""
         knots = np.asarray(knots, dtype=float)
         a, span = float(knots[0]), float(knots[-1] - knots[0])
-        x = (np.asarray(V, dtype=float) - a) / span
+        x = np.ravel((np.asarray(V, dtype=float) - a) / span)
         k = (knots[2:-2] - a) / span
-        cols = [np.ones_like(x), x, x * x, x ** 3] + [np.clip(x - kj, 0.0, None) ** 3 for kj in k]
-        return np.column_stack(cols)
+        out = np.empty((x.size, 4 + k.size))
+        out[:, 0] = 1.0
+        out[:, 1] = x
+        out[:, 2] = x * x
+        out[:, 3] = x ** 3
+        out[:, 4:] = np.maximum(x[:, None] - k[None, :], 0.0) ** 3
+        return out
 
     # ---- fitting -----------------------------------------------------------------------
     def hints(self):
