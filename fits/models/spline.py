@@ -21,6 +21,8 @@ holding C at its end values beyond the knots in the netlist only.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from scipy.interpolate import CubicSpline
 
@@ -124,7 +126,7 @@ class SplineModel(TableModel):
         top = min(MAX_KNOTS, distinct.size - 2)
         out = []
         for k in range(MIN_KNOTS, top + 1):
-            spec = SplineModel(k)
+            spec = _of_knots(k)
             knots = np.linspace(distinct[0], distinct[-1], k)
             out.append(Variant(spec, {f"V{i}_V": float(v) for i, v in enumerate(knots)},
                                f"spline of {k} knots"))
@@ -148,3 +150,11 @@ class SplineModel(TableModel):
         xs, _ = self.points(params)
         if np.any(np.diff(xs) <= 0):
             raise ModelError("spline knots V0_V, V1_V, ... must be strictly increasing")
+
+
+@functools.lru_cache(maxsize=None)
+def _of_knots(k: int) -> SplineModel:
+    """One spec per knot count (a spec holds nothing but its count and parameter names):
+    auto offers every count on every sweep, and building them anew cost more than the
+    leave-one-out scores of all of them."""
+    return SplineModel(k)
