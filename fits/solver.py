@@ -101,7 +101,7 @@ def solve(resid: Callable[[np.ndarray], np.ndarray], jac: Callable[[np.ndarray],
         lo_i, hi_i = lo[idx], hi[idx]
 
         def full(p):
-            y = base.copy()
+            y = np.array(base)
             y[idx] = np.minimum(np.maximum(p, lo_i), hi_i)
             return y, (p >= lo_i) & (p <= hi_i)
 
