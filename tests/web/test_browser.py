@@ -65,14 +65,33 @@ def _click_and_wait(driver, element, timeout_s=30.0) -> None:
     page (what a slow shared machine showed), so wait for the old root to go stale and the new
     document to finish loading (Selenium's documented explicit-wait pattern)."""
     from selenium.webdriver.common.by import By
-    from selenium.webdriver.support import expected_conditions as EC
     from selenium.webdriver.support.ui import WebDriverWait
 
     old_root = driver.find_element(By.TAG_NAME, "html")
     element.click()
     wait = WebDriverWait(driver, timeout_s)
-    wait.until(EC.staleness_of(old_root))
+    wait.until(_replaced(old_root))
     wait.until(lambda drv: drv.execute_script("return document.readyState") == "complete")
+
+
+def _replaced(element):
+    """Selenium's staleness_of, also taking chromedriver's other answer for a node of a
+    replaced document ('Node with given id does not belong to the document', an unknown
+    error instead of a stale element reference: SeleniumHQ/selenium issue 15401) as stale."""
+    from selenium.common.exceptions import StaleElementReferenceException, WebDriverException
+
+    def gone(_driver) -> bool:
+        try:
+            element.is_enabled()
+        except StaleElementReferenceException:
+            return True
+        except WebDriverException as exc:
+            if "does not belong to the document" in str(exc):
+                return True
+            raise
+        return False
+
+    return gone
 
 
 def test_rank_compare_part_and_spice_download(chromium, demo_site, demo_library, tmp_path):
