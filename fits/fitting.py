@@ -30,8 +30,8 @@ How a fit is done, and why:
   the fit as not describing the data and add a model-error term to its band.
 - Model choice as an uncertainty: every other candidate whose leave-one-out score the data
   cannot tell from the chosen one's at k = 2 (within _BAND_SE_RULE standard errors and
-  _BAND_RATIO times the best score; its variants too, VariantFit.alternatives) describes the data as well, so where the two part
-  is not known from the data. Their gap at each bias, taken as the half-width of a
+  _BAND_RATIO times the best score; its variants too, VariantFit.alternatives) describes
+  the data as well, so where the two part is not known from the data. Their gap at each bias, taken as the half-width of a
   rectangular distribution (/sqrt(3), JCGM 100 4.3.7), is the band's model-choice term:
   a profile over the measured range (Curve.model_choice_u_F, CHOICE_NODES values), wide
   between sparse readings where laws part and nothing where they agree. The lack-of-fit
@@ -643,7 +643,7 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
     loo = _linear_loo(variants, data)
     scored = _scored_points(data.bias_V)
     scores = {i: sc[scored] for i, (sc, _) in loo.items()}
-    coefs = {i: c for i, (_, c) in loo.items()}
+    triangles = {i: rq for i, (_, rq) in loo.items()}  # (R, Q^T y): solved when looked at
     keys = {i: (True, len(variants[i].spec.powers), 0, True) for i in loo}
     if not scores:
         return variants[0]
@@ -655,7 +655,7 @@ def _linear_choice(variants: list[Variant], data: SweepData) -> Variant:
         if variants[i].spec.degree == 0:
             return None  # a constant cannot turn
         dense = np.zeros(variants[i].spec.degree + 1)
-        dense[list(variants[i].spec.powers)] = solve_triangular(*coefs[i], check_finite=False)
+        dense[list(variants[i].spec.powers)] = solve_triangular(*triangles[i], check_finite=False)
         return np.polynomial.polynomial.polyval(grid, dense), grid * Vs
 
     return variants[_smooth_choice(scores, keys, data, curve)]
