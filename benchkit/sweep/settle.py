@@ -18,8 +18,8 @@ positive (an overload answer, a dropped reading) are left out.
 
 Rule. The part counts as settled at the first reading where
   - at least the charge wait has passed since the bias was reached (`min_dwell_s`, or
-    `charge_time_constants` times feed_R_ohm*C of the largest C the part may have when the
-    plan gives the fixture's `feed_R_ohm` and that is longer: charge_wait_for),
+    `charge_time_constants` times feed_R_ohm*C when the plan gives the fixture's
+    `feed_R_ohm` and that is longer: charge_wait_for; see "Charge wait" below),
   - the readings span at least `window_s` (at least MIN_WINDOW_READINGS of them), and
   - |drift| + DRIFT_MARGIN_SE * u(drift) <= max_drift_pct_per_s,
 so a window that only looks flat because of noise does not count. If that has not happened
@@ -67,6 +67,18 @@ profile; start_sample() clears it. At a turning point of an adaptive loop, where
 recorded, turn_wait() waits the charge wait only: the relaxation still under way
 there decays with the same time constant as the next step's own [common practice: linear
 response, the responses to successive steps add], so the next point's fit reads it off.
+
+Charge wait. The part charges through the feed resistor with the time constant
+feed_R_ohm*C at the bias it is charging to [handbook: first-order RC circuit], and under DC
+bias a class-2 part has a fraction of its 0 V capacitance: waiting for the largest C its
+tolerance allows at every point wastes most of the wait at high bias. So the wait of each
+point (and turn) is sized from the part's own readings there: the first reading, taken as
+the ramp ends, and every later one raise it to charge_time_constants*feed_R_ohm*C*
+CHARGE_C_MARGIN for the largest C read so far in this dwell, never below `min_dwell_s` and
+never beyond the wait for the largest C of the part's tolerance (start_sample); readings
+taken before the wait has passed are not used. The margin covers a reading taken while
+the part still lags the supply (see CHARGE_C_MARGIN); the readings after it show the C
+the part really has there, and lengthen the wait if it is larger.
 """
 
 from __future__ import annotations
@@ -101,6 +113,13 @@ MIN_TAU_FRACTION_OF_MIN_DWELL = 0.25  # the prediction's shortest tau (predictio
 # C per volt (a steep class-2 curve) the lag costs 20 % of C at first; 8 time constants
 # bring it to 0.007 %, below a reading's noise (exp(-8) = 3.4e-4).
 CHARGE_TIME_CONSTANTS = 8.0
+# The C a charge wait is sized for, as a multiple of the largest reading of the dwell so far.
+# A reading taken while the part lags the supply by r*R*C is off by |dC/dV|*lag: with the
+# numbers above and a falling step (the part still above its set bias, so C reads low) 15 %
+# of C per volt at a lag of up to 1.3 V (22 uF + 20 % at 5 V/s) reads up to 20 % low
+# [derived]; 1.25 covers it, and the later readings of the dwell, nearer the charged value,
+# lengthen the wait if they show more.
+CHARGE_C_MARGIN = 1.25
 
 
 def largest_C_F(part) -> float | None:
@@ -121,14 +140,6 @@ def charge_wait_for(min_dwell_s: float, feed_R_ohm: float | None, C_max_F: float
     if feed_R_ohm is not None and C_max_F is not None and C_max_F > 0:
         wait = max(wait, n_tau * float(feed_R_ohm) * float(C_max_F))
     return min(wait, float(max_dwell_s))
-
-
-def plan_charge_wait_s(settle: dict, part) -> float:
-    """The charge wait a point of `part` gets under the plan's normalised [settle] table (the
-    same as SettleDetector.from_plan(settle) after start_sample(largest_C_F(part)))."""
-    return charge_wait_for(settle["min_dwell_s"], settle.get("feed_R_ohm"), largest_C_F(part),
-                           settle.get("charge_time_constants", CHARGE_TIME_CONSTANTS),
-                           settle["max_dwell_s"])
 
 
 @dataclass(frozen=True)
@@ -305,7 +316,8 @@ class SettleDetector:
         self.min_dwell_s = float(min_dwell_s)
         self.feed_R_ohm = None if feed_R_ohm is None else float(feed_R_ohm)
         self.charge_time_constants = float(charge_time_constants)
-        self.charge_wait_s = self.min_dwell_s  # the sample's (start_sample)
+        self.charge_wait_s = self.min_dwell_s  # the sample's longest (start_sample)
+        self.point_charge_wait_s = self.charge_wait_s  # the last dwell's own (charge_wait_at)
         self.window_s = float(window_s)
         self.read_interval_s = float(read_interval_s)
         self.last: SettleResult | None = None
@@ -340,6 +352,15 @@ class SettleDetector:
         self.tau_profile = TauProfile(self.max_tau_s,
                                       MIN_TAU_FRACTION_OF_MIN_DWELL * self.charge_wait_s)
 
+    def charge_wait_at(self, C_F: float | None) -> float:
+        """The charge wait for a part that reads C_F at this bias (module docstring, "Charge
+        wait"); the sample's longest wait without a feed resistor or a usable reading."""
+        if self.feed_R_ohm is None or C_F is None or not (0 < C_F < 1e30):
+            return self.charge_wait_s
+        wait = charge_wait_for(self.min_dwell_s, self.feed_R_ohm, CHARGE_C_MARGIN * C_F,
+                               self.charge_time_constants, self.max_dwell_s)
+        return min(wait, self.charge_wait_s)
+
     def settled(self, est: DriftEstimate) -> bool:
         """The drift rule: the drift, one standard error to the bad side, is within the
         threshold (always true when the plan gives no drift threshold)."""
@@ -353,7 +374,7 @@ class SettleDetector:
         always true when the plan gives no residual threshold."""
         if self.max_residual_pct_of_reading is None and self.max_residual_pct_of_C0 is None:
             return True
-        lo = t0 + self.charge_wait_s - 1e-9
+        lo = t0 + self.point_charge_wait_s - 1e-9
         k = next((i for i, t in enumerate(times) if t >= lo), len(times))
         t, c = times[k:], values[k:]
         if len(t) < MIN_FIT_READINGS or t[-1] - t[0] < self.window_s * (1 - 1e-9):
@@ -377,6 +398,8 @@ class SettleDetector:
         values: list[float] = []
         est: DriftEstimate | None = None
         t_prev = t0
+        C_seen = None  # the largest reading of this dwell (its charge wait)
+        self.point_charge_wait_s = self.charge_wait_s
         while True:
             if clock.now() - t0 >= self.max_dwell_s:
                 self.last = SettleResult(clock.now() - t0, est, True, len(times))
@@ -386,8 +409,10 @@ class SettleDetector:
             if c is not None and math.isfinite(c) and 0 < c < 1e30:  # 9.9E37 = overload
                 times.append(t)
                 values.append(float(c))
+                C_seen = float(c) if C_seen is None else max(C_seen, float(c))
+                self.point_charge_wait_s = self.charge_wait_at(C_seen)
             est = self._estimate(times, values, t) or est
-            if (est is not None and t - t0 >= self.charge_wait_s and self.settled(est)
+            if (est is not None and t - t0 >= self.point_charge_wait_s and self.settled(est)
                     and self.residual_ok(times, values, t0)):
                 self.last = SettleResult(t - t0, est, False, len(times))
                 if self.reference_C_F is None:
@@ -403,6 +428,9 @@ class SettleDetector:
         """The prediction rule (module docstring): read until the predicted settled value is
         known well enough, or max_dwell_s; the transient then joins the sample's tau profile."""
         t0 = clock.now()
+        # with a feed resistor the first reading, as the ramp ends, sizes the charge wait
+        sized = self.feed_R_ohm is None
+        self.point_charge_wait_s = self.charge_wait_s
         lo = t0 + self.charge_wait_s - 1e-9
         times: list[float] = []
         values: list[float] = []
@@ -410,18 +438,27 @@ class SettleDetector:
         est: DriftEstimate | None = None
         t_prev = t0
         hit_max = False
+        C_seen = None  # the largest reading of this dwell (its charge wait)
         while True:
             if clock.now() - t0 >= self.max_dwell_s:
                 hit_max = True
                 break
-            if clock.now() < lo:  # charging through the fixture: nothing to read yet
+            if sized and clock.now() < lo:  # charging through the fixture: nothing to read yet
                 clock.sleep(lo - clock.now())
                 continue
             c = probe()
             t = clock.now()
             if c is not None and math.isfinite(c) and 0 < c < 1e30:
-                times.append(t)
-                values.append(float(c))
+                if self.feed_R_ohm is not None and (C_seen is None or c > C_seen):
+                    C_seen = float(c)  # a larger C than read so far: a longer charge
+                    self.point_charge_wait_s = self.charge_wait_at(C_seen)
+                    lo = t0 + self.point_charge_wait_s - 1e-9
+                    keep = [i for i, ti in enumerate(times) if ti >= lo]
+                    times, values = [times[i] for i in keep], [values[i] for i in keep]
+                if t >= lo:
+                    times.append(t)
+                    values.append(float(c))
+            sized = True
             if len(times) >= MIN_PREDICT_READINGS and times[-1] > times[0]:
                 pred = self.tau_profile.predict(times, values)
                 est = window_drift(times, values)
@@ -449,7 +486,14 @@ class SettleDetector:
         if not self.predicts:
             return self.wait(clock, probe)
         t0 = clock.now()
-        clock.sleep(self.charge_wait_s)
+        wait = self.charge_wait_s
+        if self.feed_R_ohm is not None:  # sized by one reading at the turn (module docstring)
+            c = probe()
+            if c is not None and math.isfinite(c) and 0 < c < 1e30:
+                wait = self.charge_wait_at(float(c))
+        self.point_charge_wait_s = wait
+        if clock.now() < t0 + wait:
+            clock.sleep(t0 + wait - clock.now())
         self.last = SettleResult(clock.now() - t0, None, False, 0)
         return self.last
 
@@ -466,7 +510,8 @@ class SettleDetector:
         return window_drift(t, c)
 
 
-__all__ = ["SettleDetector", "charge_wait_for", "plan_charge_wait_s", "largest_C_F",
-           "CHARGE_TIME_CONSTANTS", "Prediction", "SettleResult", "DriftEstimate", "window_drift",
+__all__ = ["SettleDetector", "charge_wait_for", "largest_C_F",
+           "CHARGE_TIME_CONSTANTS", "CHARGE_C_MARGIN", "Prediction", "SettleResult",
+           "DriftEstimate", "window_drift",
            "ResidualEstimate", "relaxation_residual", "MIN_FIT_READINGS",
            "MAX_DWELL_FLAG", "MIN_WINDOW_READINGS", "DRIFT_MARGIN_SE"]

@@ -25,9 +25,9 @@ def expected_duration_s(plan: Plan, sw: SampleSweep) -> tuple[float, float]:
     ramp += abs(prev) / rate  # back to 0 V at the end of the sample
     n = len(sw.points)
     if plan.measure["dwell"] == "settle" and plan.settle is not None:
-        from benchkit.sweep.settle import plan_charge_wait_s
-
-        shortest = plan_charge_wait_s(plan.settle, sw.part)
+        # a point waits at least the plan's minimum (the charge wait is sized from the C the
+        # part reads at each bias, benchkit/sweep/settle.py), and at most the maximum dwell
+        shortest = float(plan.settle["min_dwell_s"])
         return ramp + n * shortest, ramp + n * plan.settle["max_dwell_s"]
     d = n * float(plan.dwell_s or 0.0)
     return ramp + d, ramp + d

@@ -125,13 +125,98 @@ def test_the_plan_takes_the_feed_resistor_and_refuses_a_bad_one():
         parse_plan(_plan({"feed_R_ohm": -1.0}), "p")
 
 
-def test_the_run_summary_and_the_detector_wait_alike():
-    # the plan's expected duration (benchkit/sweep/summary.py) uses the wait the detector uses
-    from benchkit.sweep.settle import plan_charge_wait_s
+def test_the_run_summary_gives_the_plans_minimum_and_maximum_per_point():
+    # the charge wait is sized at each bias, so the summary's shortest point is min_dwell_s
+    from benchkit.catalogue import DEMO_FIXTURE, load_fixture
+    from benchkit.sweep.plan import build_sweeps, resolve_samples
+    from benchkit.sweep.summary import expected_duration_s
 
-    part = load_parts(DEMO_PARTS)["BD-1005"]
-    for extra in ({"feed_R_ohm": 10e3}, {"feed_R_ohm": 10e3, "charge_time_constants": 4}, {}):
-        settle = parse_plan(_plan(extra), "p").settle
-        det = SettleDetector.from_plan(settle)
-        det.start_sample(largest_C_F(part))
-        assert plan_charge_wait_s(settle, part) == det.charge_wait_s
+    parts = load_parts(DEMO_PARTS)
+    fixture = load_fixture(DEMO_FIXTURE, parts)
+    slot = next(s for s in fixture if s.part_id == "BD-1005")
+    d = _plan({"feed_R_ohm": 10e3, "min_dwell_s": 0.5})
+    d["samples"] = [{"sample_id": slot.sample_id, "part_id": slot.part_id, "channel": slot.channel}]
+    plan = parse_plan(d, "p")
+    sw = build_sweeps(plan, resolve_samples(plan, fixture), parts)[0]
+    V = [0.0] + [p.bias_V for p in sw.points] + [0.0]
+    ramp = sum(abs(b - a) for a, b in zip(V[:-1], V[1:])) / 5.0  # at 5 V/s
+    n = len(sw.points)
+    lo, hi = expected_duration_s(plan, sw)
+    assert lo == pytest.approx(ramp + n * 0.5) and hi == pytest.approx(ramp + n * 60.0)
+
+
+class BiasedPart:
+    """One bias step to a bias where the part has C_end (a fraction of C0 under DC bias):
+    it charges with R_feed*C_end [handbook: first-order RC circuit], starting `lag_V` away
+    from the set bias (positive: still below it, a rising step; negative: still above it, a
+    falling step, where C reads low until the lag has gone), plus a slow relaxation."""
+
+    def __init__(self, seed, C_end, lag_V):
+        self.clock = VirtualClock()
+        self.rng = np.random.default_rng(seed)
+        self.C_end, self.lag_V = C_end, lag_V
+        self.RC = R_FEED * C_end
+
+    def C_settled(self):
+        return self.C_end
+
+    def probe(self):
+        self.clock.sleep(READ_S)
+        t = self.clock.now()
+        lag = self.lag_V * math.exp(-t / self.RC)
+        C = self.C_end * (1.0 - SLOPE_PER_V * lag) + C0 * A_RELAX * math.exp(-t / TAU_RELAX)
+        return C * (1.0 + 1e-4 * self.rng.standard_normal())
+
+
+def _wait_on(part, min_dwell_s=0.2):
+    det = SettleDetector(None, 60.0, min_dwell_s=min_dwell_s, window_s=1.0,
+                         max_prediction_u_pct_of_C0=0.05, feed_R_ohm=R_FEED)
+    det.start_sample(C_MAX)
+    return det, det.wait(part.clock, part.probe)
+
+
+def test_under_bias_the_wait_is_sized_from_the_c_the_part_has_there_and_stays_unbiased():
+    # at a fifth of C0 the part charges with a fifth of the time constant: its wait is
+    # 8 R C (times the margin for a reading taken while it lags), not the 0 V part's
+    z = []
+    for seed in range(20):
+        part = BiasedPart(seed, 0.2 * C0, LAG_V)
+        det, res = _wait_on(part)
+        assert res.fit_from_s >= CHARGE_TIME_CONSTANTS * part.RC - 1e-9  # charged [handbook]
+        assert res.fit_from_s <= 0.5 * CHARGE_TIME_CONSTANTS * R_FEED * C_MAX
+        assert det.point_charge_wait_s < det.charge_wait_s
+        p = res.prediction
+        z.append((p.C_inf_F - part.C_settled()) / p.u_C_inf_F)
+    z = np.array(z)
+    assert abs(np.median(z)) <= 1.0, z
+    assert np.mean(np.abs(z) <= 3.0) >= 0.8, z
+
+
+def test_a_falling_step_that_reads_low_at_first_waits_for_the_c_it_comes_to():
+    # still 4 V above its set bias (a fast ramp on a slow fixture), the part first reads a
+    # third low, more than the margin covers; the readings after the first show more C,
+    # and the wait grows to 8 R C of the charged value
+    for seed in range(5):
+        part = BiasedPart(seed, 0.8 * C0, -4.0 * LAG_V)
+        first = part.C_end * (1.0 - SLOPE_PER_V * part.lag_V * math.exp(-READ_S / part.RC))
+        det, res = _wait_on(part)
+        assert res.fit_from_s >= CHARGE_TIME_CONSTANTS * part.RC - 1e-9
+        assert det.point_charge_wait_s > CHARGE_TIME_CONSTANTS * R_FEED * first * 1.25
+
+
+def test_without_a_usable_reading_the_wait_is_the_largest_parts():
+    det = SettleDetector(None, 60.0, min_dwell_s=0.2, window_s=1.0,
+                         max_prediction_u_pct_of_C0=0.05, feed_R_ohm=R_FEED)
+    det.start_sample(C_MAX)
+    for C in (None, float("nan"), 9.9e37, 0.0, -1e-6):
+        assert det.charge_wait_at(C) == det.charge_wait_s
+    assert det.charge_wait_at(1e-9) == 0.2  # a tiny C: the plan's minimum
+
+
+def test_the_turn_wait_is_sized_by_one_reading_at_the_turn():
+    part = BiasedPart(0, 0.1 * C0, LAG_V)
+    det = SettleDetector(None, 60.0, min_dwell_s=0.2, window_s=1.0,
+                         max_prediction_u_pct_of_C0=0.05, feed_R_ohm=R_FEED)
+    det.start_sample(C_MAX)
+    res = det.turn_wait(part.clock, part.probe)
+    assert CHARGE_TIME_CONSTANTS * part.RC <= float(res) < 0.25 * det.charge_wait_s
