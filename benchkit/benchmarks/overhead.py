@@ -8,7 +8,9 @@ measurement time is waited for and what is left is software and link):
   the sessions' raw write and read, and the wall time taken between the first and the
   last saved point;
 - bare: the recorded exchanges of those points replayed through pyvisa resources opened
-  directly (write, read, nothing else), plus one row per point written and fsync'd;
+  directly, by the same pyvisa calls the engine's sessions make (the VISA library's write
+  and read on the resource's session, nothing else), plus one row per point written and
+  fsync'd;
   the engine's sleeps on the bench clock (ramp pauses, dwell) are replayed in their place
   too, as the simulated bench integrates its physics over the clock time that passes (its
   stand-in for the instruments' own time: the same work for every contender);
@@ -35,6 +37,8 @@ import tempfile
 import threading
 import time
 from pathlib import Path
+
+from pyvisa import constants
 
 from benchkit.atomic import write_text_atomic
 from benchkit.benchmarks.bench_time import top_V, uniform_plan
@@ -144,11 +148,19 @@ def _row_text(i: int) -> bytes:
 
 
 def _bare(opened, clock, exchanges) -> None:
+    """Each exchange through the pyvisa layer the engine's sessions use: the VISA library's
+    write and read (viWrite, viRead until the termination character) on the resource's
+    session, so that the replay costs the exchanges and nothing else."""
+    more = constants.StatusCode.success_max_count_read
     for res, op, text in exchanges:
         if op == "w":
-            opened[res].write(text)
+            lib, vi, term = opened[res]
+            lib.write(vi, (text + term).encode("ascii"))
         elif op == "r":
-            opened[res].read()
+            lib, vi, _ = opened[res]
+            status = more
+            while status == more:
+                _, status = lib.read(vi, 20 * 1024)
         else:
             clock.sleep(text)
 
@@ -161,14 +173,16 @@ def replay_bare(resources: dict, recorded, out: Path, clock) -> float:
 
     rm = pyvisa.ResourceManager("@py")
     profs = _terminations()
-    opened = {}
+    opened, handles = {}, []
     try:
         for role, res in resources.items():
             p = profs.get(role)
             if p is None:
                 continue
-            opened[res] = rm.open_resource(res, read_termination=p.read_termination,
-                                           write_termination=p.write_termination, timeout=5000)
+            r = rm.open_resource(res, read_termination=p.read_termination,
+                                 write_termination=p.write_termination, timeout=5000)
+            handles.append(r)
+            opened[res] = (r.visalib, r.session, p.write_termination)
         # a scratch file of its own (deleted on close): only the write and the fsync count
         fh = tempfile.TemporaryFile(dir=out.parent, buffering=0)
         fd = fh.fileno()
@@ -184,7 +198,7 @@ def replay_bare(resources: dict, recorded, out: Path, clock) -> float:
         finally:
             fh.close()
     finally:
-        for r in opened.values():
+        for r in handles:
             r.close()
     return dt / len(segments)
 

@@ -34,10 +34,10 @@ class LinkRecoveries:
         self._retries_seen = self._retry_total()
 
     def _retry_total(self) -> int:
-        """The sum of every link's retry counters: unchanged means nothing to note (looked
-        at several times a point, so kept to a few lookups)."""
-        return sum(s.counters.get(k, 0) for s in self._sessions.values()
-                   for k in self.RETRY_COUNTERS)
+        """The sum of every link's counters (they only grow): unchanged means nothing to
+        note; a change is looked at counter by counter (looked at several times a point, so
+        kept to one sum per link)."""
+        return sum(s.counters.total() for s in self._sessions.values())
 
     def _note_recoveries(self) -> bool:
         """Log what each link recovered from since the last look (event link_recovered).

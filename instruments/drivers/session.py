@@ -105,6 +105,7 @@ class Session:
                 "address in the bench file (e.g. 'TCPIP0::192.168.0.10::5025::SOCKET')",
                 role=role, resource=str(resource))
         self.resource = normalise_resource(resource)
+        self._where_text = f"{role} ({self.resource})"
         try:
             parsed = pyvisa.rname.parse_resource_name(self.resource)
         except Exception as exc:  # pyvisa.rname.InvalidResourceName and friends
@@ -134,11 +135,16 @@ class Session:
         self.max_stale_lines = max_stale_lines
         self.serial = dict(serial or {})
         self.common = {**COMMON_DEFAULTS, **(common or {})}
+        for text in self.common.values():   # checked once here: the raw writes trust them
+            check_command_text(text, f"{role}: common command")
         self.on_reconnect = on_reconnect
         self.visa_library = visa_library or DEFAULT_VISA_LIBRARY
         self._sleep = sleep
         self._rm = rm
         self._res: Any = None
+        self._lib: Any = None        # the resource's VISA library and session handle, for
+        self._vi: Any = None         # its low-level read and write (None: the resource's own)
+        self._chunk = 20 * 1024
         self._user_open = False      # open() called and close() not yet
         self._dirty = False          # a reply may be pending: resync before trusting one
         self._link_down = False      # the link refused an operation: reopen it
@@ -173,7 +179,7 @@ class Session:
         self._close_link()
 
     def _where(self) -> str:
-        return f"{self.role} ({self.resource})"
+        return self._where_text
 
     def _open_link(self) -> None:
         try:
@@ -217,9 +223,14 @@ class Session:
                 "e.g. 'TCPIP0::host::5025::SOCKET'", role=self.role,
                 resource=self.resource) from None
         self._res = res
+        lib, vi = getattr(res, "visalib", None), getattr(res, "session", None)
+        fast = lib is not None and vi is not None and hasattr(lib, "read") and hasattr(lib, "write")
+        self._lib, self._vi = (lib, vi) if fast else (None, None)
+        self._chunk = int(getattr(res, "chunk_size", 20 * 1024) or 20 * 1024)
 
     def _close_link(self) -> None:
         res, self._res = self._res, None
+        self._lib = self._vi = None
         if res is not None:
             try:
                 res.close()
@@ -264,12 +275,22 @@ class Session:
 
     # -- raw operations (translate backend exceptions) -------------------------------------
 
+    # Every command reaching these two was checked by write(), query() or __init__ (common).
+    # A pyvisa resource is driven through its VISA library's read and write (the low-level
+    # layer of pyvisa, viRead/viWrite): the same bytes on the link as its write() and read()
+    # make, without their per-call termination and warning bookkeeping (pyvisa docs: the
+    # low-level API, `resource.visalib` with `resource.session`). Anything else that stands
+    # in for a resource is driven by its own write() and read().
+
     def _raw_write(self, command: str) -> None:
-        check_command_text(command, self._where())
-        if self._res is None:
+        res = self._res
+        if res is None:
             raise _LinkDown("the link is closed")
         try:
-            self._res.write(command)
+            if self._lib is not None:
+                self._lib.write(self._vi, (command + self.write_termination).encode("ascii"))
+            else:
+                res.write(command)
         except VisaIOError as exc:
             if exc.error_code == constants.StatusCode.error_timeout:
                 raise _Timeout(str(exc)) from None
@@ -278,10 +299,19 @@ class Session:
             raise _LinkDown(f"{type(exc).__name__}: {exc}") from None
 
     def _raw_read(self) -> str:
-        if self._res is None:
+        res = self._res
+        if res is None:
             raise _LinkDown("the link is closed")
         try:
-            reply = self._res.read()
+            if self._lib is not None:
+                # viRead until the termination character ends it (not a full chunk)
+                data, status = self._lib.read(self._vi, self._chunk)
+                while status == constants.StatusCode.success_max_count_read:
+                    more, status = self._lib.read(self._vi, self._chunk)
+                    data += more
+                reply = data.decode("ascii")
+            else:
+                reply = res.read()
         except VisaIOError as exc:
             if exc.error_code == constants.StatusCode.error_timeout:
                 raise _Timeout(str(exc)) from None

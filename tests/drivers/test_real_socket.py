@@ -35,6 +35,20 @@ def test_open_set_query_measure_over_tcp(toy_server):
         "FUNCtion?", "INITiate", "FETCh?"]
 
 
+def test_a_reply_longer_than_one_read_chunk_is_read_whole(toy_server):
+    # the session reads through pyvisa's low-level layer (visalib.read on the resource's
+    # session); viRead returns success_max_count_read when the chunk filled before the
+    # termination character (VISA viRead, pyvisa constants): the session must read on
+    toy, res = toy_server
+    with LCRMeter(res, timeout_s=2.0) as m:
+        assert m.session._lib is not None          # the low-level path, not the resource's
+        m.session._chunk = 3
+        assert m.session.query("*IDN?") == toy.idn
+        assert m.freq_Hz == 1000.0                 # and the next reply is in step
+        m.session._chunk = 20 * 1024
+        assert m.measure() == Reading(1e-6, 1e-2, "CPD", False)
+
+
 def test_lower_case_resource_string_still_opens_a_socket_session(toy_server):
     toy, res = toy_server
     with LCRMeter(res.lower(), timeout_s=2.0) as m:

@@ -140,6 +140,9 @@ def test_the_meter_reads_the_part_at_the_part_temperature_not_the_air(rm):
         m, sc, ch = (open_res(rm, bench.resources[r]) for r in ("meter", "scanner", "chamber"))
         try:
             sc.write("ROUT:CLOS (@1)")
+            # the scanner is its own instrument: wait until it has closed the channel before
+            # the meter reads (IEEE 488.2 *OPC?), or a loaded machine reads the open fixture
+            assert sc.query("*OPC?") == "1"
             ch.write("SOUR:TEMP:RATE 0.5")
             ch.write("SOUR:TEMP 85")
             assert ch.query("*OPC?") == "1"
