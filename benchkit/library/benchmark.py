@@ -85,12 +85,17 @@ def benchmark_query(n_curves: int = 100_000, *, bias_V: float = 5.0, temp_C: flo
     # The documents are the benchmark's own (some 800,000 objects for 100,000 curves), not a
     # querying process's: a full garbage collection of them that fell inside a timed query
     # cost it about 0.4 s. Frozen, the collector leaves them out (gc.freeze) until the end.
+    # gc.unfreeze releases every frozen object, so it is only called when this froze the
+    # first ones: a caller's own frozen objects stay frozen (and so, then, do these, which
+    # reference counting still frees: plain dicts and lists, no cycles).
+    caller_froze = gc.get_freeze_count() > 0
     gc.collect()
     gc.freeze()
     try:
         return _measure(parts, docs, bias_V, temp_C, folder, postgres_url, loop)
     finally:
-        gc.unfreeze()
+        if not caller_froze:
+            gc.unfreeze()
 
 
 def _measure(parts, docs, bias_V, temp_C, folder, postgres_url, loop) -> dict:

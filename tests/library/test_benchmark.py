@@ -43,3 +43,21 @@ def test_the_benchmarks_own_documents_are_out_of_the_collectors_way_while_it_tim
     assert len(frozen) == 12  # 3 fresh opens, each a cold query and 3 warm ones
     assert min(frozen) > before
     assert gc.get_freeze_count() == before
+
+
+def test_objects_a_caller_froze_stay_frozen(tmp_path):
+    # gc.unfreeze releases every frozen object (Python gc module documentation), so the
+    # benchmark must not call it over a caller's own frozen objects.
+    import gc
+
+    assert gc.get_freeze_count() == 0
+    keep = [[i] for i in range(1000)]
+    gc.freeze()
+    try:
+        benchmark_query(100, folder=tmp_path, loop=False)
+        # the caller's 1000 lists and their list are still frozen (an unfreeze makes it 0);
+        # frozen temporaries freed by reference counting meanwhile lower the count a little
+        assert gc.get_freeze_count() > len(keep)
+    finally:
+        gc.unfreeze()
+    del keep
