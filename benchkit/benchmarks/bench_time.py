@@ -44,11 +44,9 @@ LIMITS = {"current_limit_A": 0.01, "max_ramp_V_per_s": 5.0, "discharge_wait_s": 
 # dwell, once its standard uncertainty is within 0.15 % of C0 (the 0.5 % target is a k = 2
 # band of the fitted curve, which averages over the points); the part charges through the
 # fixture's feed resistor (10 kohm on the demo bench, instruments/sim/fixture.py Wiring) for
-# at least min_dwell_s 0.5 s and FITTED_CHARGE_TIME_CONSTANTS (3) times R*C of the C it
-# reads at that bias (times CHARGE_C_MARGIN, at most the largest C its tolerance allows)
-# before the fit's readings, and the fit follows the rest of the charging tail (which would
-# otherwise pass for a fast relaxation); at turning points it waits 8 R*C (up to 2.1 s for
-# a 22 uF part).
+# at least min_dwell_s 0.5 s and CHARGE_TIME_CONSTANTS (8) times R*C of the C it reads at
+# that bias (times CHARGE_C_MARGIN, at most the largest C its tolerance allows: 2.1 s for a
+# 22 uF part) before the fit's readings, as a charging tail would pass for a fast relaxation.
 SETTLE = {"max_prediction_u_pct_of_C0": 0.15, "max_tau_s": 20.0, "max_dwell_s": 60.0,
           "min_dwell_s": 0.5, "window_s": 1.0, "feed_R_ohm": 10e3}
 ADAPTIVE = {"target_band_pct_of_C0": 0.5, "max_points": 40, "coarse_points": 7}

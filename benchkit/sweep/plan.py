@@ -26,7 +26,6 @@ Layout (every field in SI units; see data/plans/demo.toml):
     max_prediction_u_pct_of_C0 = 0.1 # or: record the settled value predicted from the transient
     min_dwell_s = 0.5; window_s = 2.0; read_interval_s = 0.0
     feed_R_ohm = 10e3; charge_time_constants = 8   # optional: wait 8*R*C, C as read at each bias
-                                     # (a prediction fits the charging from 3*R*C on)
     [adaptive]                       # optional: adaptive bias steps (benchkit/sweep/adaptive.py)
     target_band_pct_of_C0 = 0.5; max_points = 40; coarse_points = 7
     coverage_k = 2.0; resolution_V = 0.05; model = "auto"

@@ -23,13 +23,6 @@ interval [published: standard likelihood theory, Wilks]), widened by the Birge r
 chi2_min/dof when the law does not quite fit [published: R. T. Birge, Phys. Rev. 40, 207
 (1932)], and by one grid step each side (the grid cannot resolve more).
 
-Charging. A part biased through the fixture's feed resistor R is still charging when the
-first readings are taken: settle.py then passes the charging time constant R*C and the model
-becomes C_inf + A*exp(-(t - t1)/tau) + B*exp(-(t - t1)/(R*C)), still linear once tau is
-given (three columns; where the two exponentials are too alike to be told apart, the fit
-with the one stands for both). The sample's tau profile adds up transients fitted the same
-way, and each has one degree of freedom less.
-
 Prediction and its uncertainty. C_inf at the best tau; its standard uncertainty is the fit's
 own (s^2 times the (0, 0) element of (X^T X)^-1 at the best tau, times the Birge ratio)
 added in quadrature to half the spread of C_inf over the kept taus (what not knowing tau
@@ -50,7 +43,6 @@ RELAX_TAU_GRID = 96  # log grid: neighbours differ by about 7 % over 0.05 .. 20 
 DCHI2 = 9.0  # three-standard-error profile interval (the rule is checked at every reading, and a
 # narrower one of a nonlinear parameter from a few readings misses the slow alternative too
 # often); its farther end counts as 3 sigma
-_MIN_DET_REL = 1e-13  # below: the charging and the relaxation columns are one
 MIN_PREDICT_READINGS = 5  # 2 linear parameters with tau known; a few more to see the noise
 
 
@@ -78,40 +70,10 @@ def tau_grid(max_tau_s: float, min_tau_s: float = RELAX_TAU_MIN_S) -> np.ndarray
     return np.geomspace(lo, max(max_tau_s, 2 * lo), RELAX_TAU_GRID)
 
 
-def _linear_fits(t, y, taus, tau_c_s=None):
-    """For each tau: (C_inf, A, SSR, (X^T X)^-1 [0, 0], ok) of y = C_inf + A*exp(-(t - t0)/tau),
-    plus B*exp(-(t - t0)/tau_c_s) when the charging time constant tau_c_s is given (where
-    the two exponentials cannot be told apart, the one stands for both)."""
+def _linear_fits(t, y, taus):
+    """For each tau: (C_inf, A, SSR, (X^T X)^-1 [0, 0]) of y = C_inf + A*exp(-(t - t0)/tau)."""
     x = np.exp(-np.outer(1.0 / taus, t - t[0]))  # (ntau, n)
-    fits = _two_term_fits(x, y)
-    if tau_c_s is None:
-        return fits
-    c, A, ssr, v00, ok2 = fits  # new arrays: filled in below where the three columns differ
-    q = np.exp(-(t - t[0]) / float(tau_c_s))  # (n,)
     n = float(t.size)
-    sx, sq = x.sum(axis=1), float(q.sum())
-    sxx, sqq, sxq = (x * x).sum(axis=1), float(q @ q), x @ q
-    sy, sxy, sqy = float(y.sum()), x @ y, float(q @ y)
-    G = np.empty((taus.size, 3, 3))
-    G[:, 0, 0], G[:, 0, 1], G[:, 0, 2] = n, sx, sq
-    G[:, 1, 0], G[:, 1, 1], G[:, 1, 2] = sx, sxx, sxq
-    G[:, 2, 0], G[:, 2, 1], G[:, 2, 2] = sq, sxq, sqq
-    # the determinant relative to the diagonal's product: how far apart the columns are
-    ok = np.linalg.det(G) > _MIN_DET_REL * n * np.maximum(sxx, 1e-300) * sqq
-    if ok.any():
-        Gi = np.linalg.inv(G[ok])
-        k = int(ok.sum())
-        b = np.stack([np.full(k, sy), sxy[ok], np.full(k, sqy)], axis=1)
-        sol = np.einsum("kij,kj->ki", Gi, b)
-        r = y[None, :] - sol[:, 0:1] - sol[:, 1:2] * x[ok] - sol[:, 2:3] * q[None, :]
-        c[ok], A[ok], v00[ok] = sol[:, 0], sol[:, 1], Gi[:, 0, 0]
-        ssr[ok] = (r * r).sum(axis=1)
-    return c, A, ssr, v00, ok | ok2
-
-
-def _two_term_fits(x, y):
-    """y = C_inf + A*x for each row of x (the exponential at one tau), in closed form."""
-    n = float(y.size)
     sx = x.sum(axis=1)
     sxx = (x * x).sum(axis=1)
     sy = float(y.sum())
@@ -141,35 +103,35 @@ class TauProfile:
         self.dof = 0
         self.n_transients = 0
 
-    def transient_chi2(self, t_s, C_F, tau_c_s=None):
+    def transient_chi2(self, t_s, C_F):
         """(chi2 over the grid, dof, fits) of one transient on its own."""
         t = np.asarray(t_s, dtype=float)
         c = np.asarray(C_F, dtype=float)
         scale = float(np.mean(c))
         y = c / scale - 1.0
-        cinf, A, ssr, v00, ok = _linear_fits(t, y, self.taus, tau_c_s)
+        cinf, A, ssr, v00, ok = _linear_fits(t, y, self.taus)
         if not ok.any():
             raise ValueError("a relaxation fit needs readings spread over time")
         var = noise_variance(t, y, float(np.min(ssr)))
-        return ssr / var, t.size - (2 if tau_c_s is None else 3), (scale, cinf, A, v00, var)
+        return ssr / var, t.size - 2, (scale, cinf, A, v00, var)
 
-    def add(self, t_s, C_F, tau_c_s=None) -> None:
+    def add(self, t_s, C_F) -> None:
         """Add a finished transient (the point's readings) to the sample's profile."""
         if len(t_s) < MIN_PREDICT_READINGS or np.ptp(t_s) <= 0:
             return
-        chi2, dof, _ = self.transient_chi2(t_s, C_F, tau_c_s)
+        chi2, dof, _ = self.transient_chi2(t_s, C_F)
         self.chi2 = self.chi2 + np.where(np.isfinite(chi2), chi2, np.nanmax(chi2[np.isfinite(chi2)]))
         self.dof += dof
         self.n_transients += 1
 
-    def predict(self, t_s, C_F, tau_c_s=None) -> Prediction:
+    def predict(self, t_s, C_F) -> Prediction:
         """The settled value of this transient, with the sample's earlier ones for tau."""
         t = np.asarray(t_s, dtype=float)
         c = np.asarray(C_F, dtype=float)
         if t.size != c.size or t.size < MIN_PREDICT_READINGS or np.ptp(t) <= 0:
             raise ValueError(f"a prediction needs {MIN_PREDICT_READINGS} or more readings "
                              "spread over time")
-        chi2, dof, (scale, cinf, A, v00, var) = self.transient_chi2(t, c, tau_c_s)
+        chi2, dof, (scale, cinf, A, v00, var) = self.transient_chi2(t, c)
         total = self.chi2 + chi2
         total = np.where(np.isfinite(total), total, np.inf)
         i = int(np.argmin(total))

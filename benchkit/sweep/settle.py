@@ -79,20 +79,6 @@ never beyond the wait for the largest C of the part's tolerance (start_sample); 
 taken before the wait has passed are not used. The margin covers a reading taken while
 the part still lags the supply (see CHARGE_C_MARGIN); the readings after it show the C
 the part really has there, and lengthen the wait if it is larger.
-
-With the prediction rule the fit does not wait for the charging to die away: it follows it.
-Once the ramp has ended, the part's lag behind the supply decays as exp(-t/(R*C)) [handbook:
-first-order RC step response], and a reading, the part's small-signal C at the voltage it
-has, is off by |dC/dV| times that lag: to first order the same exponential [derived]. So the
-prediction's model gets a third term B*exp(-t/(R_feed*C)), C the latest reading
-(benchkit/sweep/prediction.py), and its readings start after FITTED_CHARGE_TIME_CONSTANTS
-(3) time constants (of the C read, times CHARGE_C_MARGIN, as above) instead of
-charge_time_constants (8): 5 % of the lag is left there,
-about 1 % of C for the steep curve above, and the first-order error of the exponential
-(its time constant follows C, which moves by that 1 %) is 1 % of that [derived]. When the
-first reading the fit uses comes charge_time_constants of them after the bias was reached
-(a small part, a long min_dwell_s) the tail is gone and the term is left out: it would
-only widen the prediction. Turning points still wait the full charge wait.
 """
 
 from __future__ import annotations
@@ -134,9 +120,6 @@ CHARGE_TIME_CONSTANTS = 8.0
 # [derived]; 1.25 covers it, and the later readings of the dwell, nearer the charged value,
 # lengthen the wait if they show more.
 CHARGE_C_MARGIN = 1.25
-# With the prediction rule the fit follows the charging tail, so its readings may start after
-# this many time constants (module docstring, last paragraph of "Charge wait").
-FITTED_CHARGE_TIME_CONSTANTS = 3.0
 
 
 def largest_C_F(part) -> float | None:
@@ -369,31 +352,14 @@ class SettleDetector:
         self.tau_profile = TauProfile(self.max_tau_s,
                                       MIN_TAU_FRACTION_OF_MIN_DWELL * self.charge_wait_s)
 
-    def charge_wait_at(self, C_F: float | None, fitted: bool = False) -> float:
+    def charge_wait_at(self, C_F: float | None) -> float:
         """The charge wait for a part that reads C_F at this bias (module docstring, "Charge
-        wait"); the sample's longest wait without a feed resistor or a usable reading.
-        fitted: for the prediction, whose fit follows the charging tail itself, so its
-        readings may start after FITTED_CHARGE_TIME_CONSTANTS (if the plan asks for more)."""
+        wait"); the sample's longest wait without a feed resistor or a usable reading."""
         if self.feed_R_ohm is None or C_F is None or not (0 < C_F < 1e30):
             return self.charge_wait_s
-        n_tau = self.charge_time_constants
-        if fitted:
-            n_tau = min(n_tau, FITTED_CHARGE_TIME_CONSTANTS)
         wait = charge_wait_for(self.min_dwell_s, self.feed_R_ohm, CHARGE_C_MARGIN * C_F,
-                               n_tau, self.max_dwell_s)
+                               self.charge_time_constants, self.max_dwell_s)
         return min(wait, self.charge_wait_s)
-
-    def _tau_c_s(self, t0: float, times, values) -> float | None:
-        """The charging time constant R_feed*C (C the latest reading) for the prediction's
-        charging term, or None: without a feed resistor, or when the first reading the fit
-        uses came charge_time_constants of them after the bias was reached (the tail is
-        gone: the term would only widen the prediction)."""
-        if self.feed_R_ohm is None or not values:
-            return None
-        tau_c = self.feed_R_ohm * CHARGE_C_MARGIN * float(values[-1])
-        if times[0] - t0 >= self.charge_time_constants * tau_c:
-            return None
-        return self.feed_R_ohm * float(values[-1])
 
     def settled(self, est: DriftEstimate) -> bool:
         """The drift rule: the drift, one standard error to the bad side, is within the
@@ -485,7 +451,7 @@ class SettleDetector:
             if c is not None and math.isfinite(c) and 0 < c < 1e30:
                 if self.feed_R_ohm is not None and (C_seen is None or c > C_seen):
                     C_seen = float(c)  # a larger C than read so far: a longer charge
-                    self.point_charge_wait_s = self.charge_wait_at(C_seen, fitted=True)
+                    self.point_charge_wait_s = self.charge_wait_at(C_seen)
                     lo = t0 + self.point_charge_wait_s - 1e-9
                     keep = [i for i, ti in enumerate(times) if ti >= lo]
                     times, values = [times[i] for i in keep], [values[i] for i in keep]
@@ -494,7 +460,7 @@ class SettleDetector:
                     values.append(float(c))
             sized = True
             if len(times) >= MIN_PREDICT_READINGS and times[-1] > times[0]:
-                pred = self.tau_profile.predict(times, values, self._tau_c_s(t0, times, values))
+                pred = self.tau_profile.predict(times, values)
                 est = window_drift(times, values)
                 ref = self.reference_C_F or pred.C_inf_F
                 if 100.0 * pred.u_C_inf_F / ref <= self.max_prediction_u_pct_of_C0:
@@ -505,7 +471,7 @@ class SettleDetector:
                 clock.sleep(IDLE_READ_INTERVAL_S)  # a reading that took no clock time
             t_prev = t
         if pred is not None:
-            self.tau_profile.add(times, values, self._tau_c_s(t0, times, values))
+            self.tau_profile.add(times, values)
             if self.reference_C_F is None and not hit_max:
                 self.reference_C_F = pred.C_inf_F
         self.last = SettleResult(clock.now() - t0, est, hit_max, len(times), pred,

@@ -14,8 +14,7 @@ import pytest
 
 from benchkit.catalogue import DEMO_PARTS, load_parts
 from benchkit.sweep.plan import parse_plan
-from benchkit.sweep.settle import (CHARGE_TIME_CONSTANTS, FITTED_CHARGE_TIME_CONSTANTS, SettleDetector,
-                                   charge_wait_for, largest_C_F)
+from benchkit.sweep.settle import CHARGE_TIME_CONSTANTS, SettleDetector, charge_wait_for, largest_C_F
 from benchkit.errors import UserError
 from instruments.clock import VirtualClock
 
@@ -65,20 +64,20 @@ def test_the_largest_C_is_the_top_of_the_parts_tolerance():
     assert largest_C_F(object()) is None
 
 
-def _predict(seed, feed_R_ohm, min_dwell_s=1.0):
+def _predict(seed, feed_R_ohm):
     part = ChargingPart(seed)
-    det = SettleDetector(None, 60.0, min_dwell_s=min_dwell_s, window_s=1.0,
+    det = SettleDetector(None, 60.0, min_dwell_s=1.0, window_s=1.0,
                          max_prediction_u_pct_of_C0=0.05, feed_R_ohm=feed_R_ohm)
     det.start_sample(C_MAX)
     res = det.wait(part.clock, part.probe)
     return part, res
 
 
-def _z(feed_R_ohm, check=None, min_dwell_s=1.0):
+def _z(feed_R_ohm, check=None):
     """(C_inf predicted - C_inf true)/u over 20 seeds."""
     z = []
     for seed in range(20):
-        part, res = _predict(seed, feed_R_ohm, min_dwell_s)
+        part, res = _predict(seed, feed_R_ohm)
         if check:
             check(res)
         p = res.prediction
@@ -86,20 +85,15 @@ def _z(feed_R_ohm, check=None, min_dwell_s=1.0):
     return np.array(z)
 
 
-def test_a_large_part_is_read_while_its_charging_tail_is_fitted_and_its_value_is_found():
-    # the prediction follows the charging tail (its third term), so its readings start
-    # after FITTED_CHARGE_TIME_CONSTANTS of R*C (of the C read, with the margin), sooner
-    # than the 8 R*C of the largest tolerated C that a plain wait needs
-    def first_reading_inside_the_tail(res):
-        C_read = C0 * (1.0 + SLOPE_PER_V)
-        assert res.fit_from_s >= FITTED_CHARGE_TIME_CONSTANTS * R_FEED * C_read - 1e-9
-        assert res.fit_from_s < CHARGE_TIME_CONSTANTS * R_FEED * C_MAX
+def test_a_large_part_is_read_only_once_it_has_charged_and_its_settled_value_is_found():
+    def first_reading_after_the_charge(res):
+        assert res.fit_from_s >= CHARGE_TIME_CONSTANTS * R_FEED * C_MAX - 1e-9
 
-    z = _z(R_FEED, first_reading_inside_the_tail, min_dwell_s=0.5)
+    z = _z(R_FEED, first_reading_after_the_charge)
     # unbiased: the median error is well inside one standard uncertainty (the rule stops at
-    # the first reading whose fit looks good enough, so a seed may stop early and miss)
+    # the first reading whose fit looks good enough, so a few seeds stop early and miss)
     assert abs(np.median(z)) <= 1.0, z
-    assert np.mean(np.abs(z) <= 3.0) >= 0.9, z
+    assert np.mean(np.abs(z) <= 3.0) >= 0.8, z
 
 
 def test_without_the_feed_resistor_the_charging_tail_passes_for_a_relaxation():
@@ -182,14 +176,13 @@ def _wait_on(part, min_dwell_s=0.2):
 
 
 def test_under_bias_the_wait_is_sized_from_the_c_the_part_has_there_and_stays_unbiased():
-    # at a fifth of C0 the part charges with a fifth of the time constant: the prediction's
-    # readings start after 3 R C of the C there (times the margin for a reading taken while
-    # it lags; its fit follows the rest of the tail), not after the 0 V part's wait
+    # at a fifth of C0 the part charges with a fifth of the time constant: its wait is
+    # 8 R C (times the margin for a reading taken while it lags), not the 0 V part's
     z = []
     for seed in range(20):
         part = BiasedPart(seed, 0.2 * C0, LAG_V)
         det, res = _wait_on(part)
-        assert res.fit_from_s >= FITTED_CHARGE_TIME_CONSTANTS * part.RC - 1e-9
+        assert res.fit_from_s >= CHARGE_TIME_CONSTANTS * part.RC - 1e-9  # charged [handbook]
         assert res.fit_from_s <= 0.5 * CHARGE_TIME_CONSTANTS * R_FEED * C_MAX
         assert det.point_charge_wait_s < det.charge_wait_s
         p = res.prediction
@@ -202,13 +195,13 @@ def test_under_bias_the_wait_is_sized_from_the_c_the_part_has_there_and_stays_un
 def test_a_falling_step_that_reads_low_at_first_waits_for_the_c_it_comes_to():
     # still 4 V above its set bias (a fast ramp on a slow fixture), the part first reads a
     # third low, more than the margin covers; the readings after the first show more C,
-    # and the prediction's wait grows to 3 R C of the charged value
+    # and the wait grows to 8 R C of the charged value
     for seed in range(5):
         part = BiasedPart(seed, 0.8 * C0, -4.0 * LAG_V)
         first = part.C_end * (1.0 - SLOPE_PER_V * part.lag_V * math.exp(-READ_S / part.RC))
         det, res = _wait_on(part)
-        assert res.fit_from_s >= FITTED_CHARGE_TIME_CONSTANTS * part.RC - 1e-9
-        assert det.point_charge_wait_s > FITTED_CHARGE_TIME_CONSTANTS * R_FEED * first * 1.25
+        assert res.fit_from_s >= CHARGE_TIME_CONSTANTS * part.RC - 1e-9
+        assert det.point_charge_wait_s > CHARGE_TIME_CONSTANTS * R_FEED * first * 1.25
 
 
 def test_without_a_usable_reading_the_wait_is_the_largest_parts():
