@@ -17,7 +17,10 @@ with SimBench.true_settled_C_F(turn_V = top), because the sweep turns at its top
 the bench's falling truth is that of a turn far out (the two differ over about twice the
 coercive voltage below the top). Errors are in percent of C0, the true rising value at 0 V.
 Bench time is the run's clock time from start to the end of the final ramp to 0 V
-(discharge wait 0 s in both plans, so it does not count for either).
+(discharge wait 0 s in both plans, so it does not count for either). Each recorded point is
+also held against the true settled value at its bias (point_z): a rule that reads before the
+part has settled can keep the fit within its target while its points claim more than they
+know, and only this shows it.
 
 Seeds. The adaptive sweep's course depends on the meter's noise (which points the planner
 adds, which law the fit chooses), so it runs once per seed of SEEDS (the simulated bench's
@@ -93,6 +96,22 @@ def _truth(bench, channel: int, bias_V: float, branch: str, cond: dict, top: flo
                                   function=cond["function"])
 
 
+def point_z(rows, truth) -> np.ndarray:
+    """(recorded C - true settled C) / its standard uncertainty, for each row that gives one:
+    C_std_F over sqrt(n_readings), the standard error of a mean of readings, which is how
+    the prediction rule records its own u(C_inf) too (benchkit/sweep/point.py). truth(row)
+    is the true settled C at the row's bias and branch. For honest uncertainties about 95 %
+    of |z| lie within 2 and the rms is about 1 [standard: GUM, JCGM 100:2008, normal
+    coverage]; a point read before it settled shows up here, not in the fit's error."""
+    z = []
+    for r in rows:
+        C, s, n = r.get("C_F"), r.get("C_std_F"), r.get("n_readings")
+        if C in (None, "") or s in (None, "") or not n or float(s) <= 0:
+            continue
+        z.append((float(C) - truth(r)) / (float(s) / math.sqrt(int(n))))
+    return np.asarray(z, dtype=float)
+
+
 def run_one(plan_dict: dict, run_dir: Path, seed: int = 0) -> dict:
     """One sweep on a fresh simulated bench; its bench time, points and fit errors."""
     from benchkit.sweep.adaptive import fit_branch
@@ -126,6 +145,8 @@ def run_one(plan_dict: dict, run_dir: Path, seed: int = 0) -> dict:
             truth = np.array([_truth(bench, slot["channel"], v, branch, cond, top) for v in grid])
             errors[branch] = float(np.max(np.abs(np.asarray(out.curve.C(grid)) - truth)) / C0 * 100.0)
             models[branch] = out.curve.model
+        z = point_z(rows, lambda r: _truth(bench, slot["channel"], float(r["bias_set_V"]),
+                                           r["branch"], cond, top))
     flags = [f for r in rows for f in r["flags"].split(";") if f]
     rec = {
         "bench_s": bench_s,
@@ -135,6 +156,8 @@ def run_one(plan_dict: dict, run_dir: Path, seed: int = 0) -> dict:
         "models": models,
         "max_dwell_points": flags.count("max_dwell"),
         "mean_settle_s": float(np.mean([float(r["settle_s"]) for r in rows])),
+        "points_rms_z": float(np.sqrt(np.mean(z * z))) if z.size else None,
+        "points_share_beyond_2u": float(np.mean(np.abs(z) > 2.0)) if z.size else None,
         "wall_s": wall_s,
         "run_dir": str(run_dir),
     }
@@ -143,6 +166,10 @@ def run_one(plan_dict: dict, run_dir: Path, seed: int = 0) -> dict:
         rec.update(stop_reason=ad["stop_reason"], passes=ad["passes"],
                    band_pct_of_C0={b: s["band_pct_of_C0"] for b, s in ad["status"].items()})
     return rec
+
+
+def _f2(x) -> str:
+    return "-" if x is None else f"{x:.2f}"
 
 
 def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
@@ -179,6 +206,7 @@ def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
             "seeds": {"seeds": list(seeds), "bench_time_ratio": ratios,
                       "max_error_pct_of_C0": errors,
                       "passes": [r.get("passes") for r in by_seed],
+                      "points_rms_z": [r["points_rms_z"] for r in by_seed],
                       "stop_reason": [r.get("stop_reason") for r in by_seed]},
             "worst_bench_time_ratio": max(ratios),
             "worst_max_error_pct_of_C0": max(errors),
@@ -189,7 +217,8 @@ def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
             f"adaptive {a['bench_s']:.0f} s / {a['points']} points, ratio "
             f"{' '.join(f'{x:.2f}' for x in ratios)} (seeds {', '.join(map(str, seeds))}), "
             f"max error {u['max_error_pct_of_C0']:.3f} % / "
-            f"{' '.join(f'{x:.3f}' for x in errors)} % of C0")
+            f"{' '.join(f'{x:.3f}' for x in errors)} % of C0; recorded points' rms z "
+            f"{' '.join(_f2(r['points_rms_z']) for r in by_seed)}")
     missing = sorted(set(wanted) - set(results))
     if missing:
         raise ValueError(f"no demo part {', '.join(missing)} on the demo fixture")

@@ -46,6 +46,12 @@ def format_table(results: dict) -> str:
             tot = bt["total"]
             lines.append(f"  all parts: uniform {tot['uniform_bench_s']:.0f} s, adaptive "
                          f"{tot['adaptive_bench_s']:.0f} s, ratio {_f(tot['bench_time_ratio'], '.2f')}")
+            zs = {pid: r["seeds"].get("points_rms_z") for pid, r in bt["parts"].items()}
+            if any(zs.values()):
+                lines.append("  recorded points against the true settled value, rms of (C - truth)/u "
+                             "(about 1 when u is honest), adaptive at each seed: "
+                             + "; ".join(f"{pid} " + " ".join(_f(x, '.2f') for x in v)
+                                         for pid, v in zs.items() if v))
             lines.append("  (err: max |fit - truth| over the fit's range, worse branch; band: adaptive "
                          "k=2 band incl. prediction check at stop, % of C0; seed 0, then the worst "
                          "ratio and err over the seeds, which the targets judge)")

@@ -48,10 +48,24 @@ def test_bench_time_keys_per_part(quick):
         for sweep in (u, a):
             assert sweep["max_error_pct_of_C0"] >= 0 and sweep["points"] >= 7
             assert set(sweep["max_error_pct_of_C0_by_branch"]) == {"rising", "falling"}
+        # the recorded points' honesty: finite and of order 1 for settled, honest points
+        assert 0.0 < a["points_rms_z"] < 10.0 and 0.0 <= a["points_share_beyond_2u"] <= 1.0
         assert a["stop_reason"] in ("target met", "point budget reached", STOP_STALLED,
                                     "resolution limit: no gap wide enough for another point")
         # the uniform sweep is 0.5 V steps up and back: 2*top/0.5 + 1 points
         assert u["points"] == round(2 * r["top_V"] / 0.5) + 1
+
+
+def test_point_z_is_the_error_over_the_standard_error_of_the_mean():
+    # standard error of a mean of n readings: s/sqrt(n) [handbook: standard error of the mean]
+    from benchkit.benchmarks.bench_time import point_z
+
+    rows = [{"C_F": "1.02e-6", "C_std_F": "4e-8", "n_readings": "4", "bias_set_V": "1.0"},
+            {"C_F": "0.99e-6", "C_std_F": "1e-8", "n_readings": "1", "bias_set_V": "2.0"},
+            {"C_F": "", "C_std_F": "", "n_readings": "0", "bias_set_V": "3.0"},  # overload
+            {"C_F": "1.0e-6", "C_std_F": "", "n_readings": "1", "bias_set_V": "4.0"}]
+    z = point_z(rows, lambda r: 1.0e-6)
+    assert z == pytest.approx([0.02e-6 / 2e-8, -0.01e-6 / 1e-8])
 
 
 def test_overhead_fits_and_library_keys(quick):
