@@ -59,6 +59,7 @@ from typing import Mapping
 
 import numpy as np
 from scipy.linalg import solve_triangular
+from scipy.special import chdtrc
 
 from fits import models, quality
 from fits.curve import Curve
@@ -493,6 +494,12 @@ def _flat_first(fits_by_family: dict, data: SweepData, order, table):
     at p >= _P_FLAT), the part is flat within noise: the flat line replaces the polynomial's
     candidate and goes first, whatever a law bent by the noise scored."""
     if data.sigma_F is None or data.n_distinct < 3:
+        return order, table
+    # the flat line's weighted fit is the weighted mean [derived: least squares of a constant]:
+    # a chi-square that already refutes it settles the question before any fit is made
+    w2 = data.weights ** 2
+    mean = float(np.sum(w2 * data.C_F) / np.sum(w2))
+    if chdtrc(data.n - 1, float(np.sum(w2 * (data.C_F - mean) ** 2))) < _P_FLAT:
         return order, table
     Vs = float(np.max(np.abs(data.bias_V))) or 1.0
     flat = _fit_linear(Variant(models.get("poly", powers=[0]), {"V_scale_V": Vs},

@@ -93,6 +93,38 @@ def test_a_part_flat_within_noise_is_reported_flat():
     assert not out.curve.stats["flat"]
 
 
+def test_flat_within_noise_is_decided_as_a_weighted_constant_fit_and_its_tests_decide_it():
+    # the rule that puts the flat line first (fits.fitting._flat_first), against a reference:
+    # the weighted least-squares constant by numpy.linalg.lstsq, its chi-square p-value by
+    # scipy.stats.chi2.sf and the runs test of its residuals, both at p >= 0.05; slopes from
+    # none to 2 % over the range, so both answers occur
+    from fits.fitting import _flat_first
+    from fits.sweepdata import check_sweep
+
+    rng = np.random.default_rng(21)
+    V = np.linspace(0, 50, 11)
+    said = {True: 0, False: 0}
+    for k in range(60):
+        fall = [0.0, 0.002, 0.005, 0.01, 0.02][k % 5]
+        sigma = 0.003 * 100e-9 * (1 + 0.5 * rng.random(V.size))
+        C = 100e-9 * (1 - fall * V / 50) + sigma * rng.normal(size=V.size)
+        w = 1 / sigma
+        c0 = np.linalg.lstsq(w[:, None], C * w, rcond=None)[0][0]
+        r = C - c0
+        p_chi2 = stats.chi2.sf(float(np.sum((r * w) ** 2)), V.size - 1)
+        p_runs = quality.runs_test(r)[2]
+        flat = bool(p_chi2 >= 0.05 and p_runs >= 0.05)
+        fitted = {"poly": None}
+        order, _ = _flat_first(fitted, check_sweep(V, C, sigma), ["tanh", "poly"], [])
+        put_first = order[0] == "poly" and fitted["poly"] is not None
+        assert put_first == flat, k
+        if flat:
+            assert fitted["poly"].label == "poly degree 0 (flat)"
+            assert fitted["poly"].params["a0_F"] == pytest.approx(c0, rel=1e-12)
+        said[flat] += 1
+    assert min(said.values()) >= 10, said
+
+
 def test_no_polynomial_wiggles_between_the_points():
     # every auto fit of the independent truths: the curve on a fine grid turns no more often
     # than the truth does by more than the noise (the truths fall monotonically on 0..top
