@@ -36,6 +36,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+from benchkit.benchmarks.table import _f
 from benchkit.commands.sim import demo_bench
 
 UNIFORM_STEP_V = 0.5
@@ -168,10 +169,6 @@ def run_one(plan_dict: dict, run_dir: Path, seed: int = 0) -> dict:
     return rec
 
 
-def _f2(x) -> str:
-    return "-" if x is None else f"{x:.2f}"
-
-
 def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
     """Both sweeps for each demo part (QUICK_PARTS up to QUICK_TOP_V with quick); by part id."""
     from benchkit.catalogue import DEMO_FIXTURE, DEMO_PARTS, load_fixture, load_parts
@@ -218,7 +215,7 @@ def run(out_dir: Path, quick: bool = False, parts=None, log=print) -> dict:
             f"{' '.join(f'{x:.2f}' for x in ratios)} (seeds {', '.join(map(str, seeds))}), "
             f"max error {u['max_error_pct_of_C0']:.3f} % / "
             f"{' '.join(f'{x:.3f}' for x in errors)} % of C0; recorded points' rms z "
-            f"{' '.join(_f2(r['points_rms_z']) for r in by_seed)}")
+            f"{' '.join(_f(r['points_rms_z'], '.2f') for r in by_seed)}")
     missing = sorted(set(wanted) - set(results))
     if missing:
         raise ValueError(f"no demo part {', '.join(missing)} on the demo fixture")
