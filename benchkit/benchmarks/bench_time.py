@@ -8,7 +8,8 @@ the uniform step) and back:
 - uniform: 0.5 V steps up and down, a fixed 5 s dwell, 3 readings per point;
 - adaptive: settle detection (the plan's [settle], SETTLE: the settled value predicted from
   the relaxation fit, its uncertainty in percent of C0) and adaptive steps (the plan's
-  [adaptive], ADAPTIVE); the dwell's readings are the point's readings.
+  [adaptive], ADAPTIVE, with the default stepped first loop: each step aimed at a change of
+  C of coarse_step_pct_of_C0); the dwell's readings are the point's readings.
 
 Both are fitted per branch with model "auto" (benchkit.sweep.adaptive.fit_branch: fits.fit_sweep
 with pooled per-point sigma) and compared with the bench's true settled curve over each fitted

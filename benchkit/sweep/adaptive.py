@@ -7,8 +7,13 @@ al., J. Appl. Phys. 68, 6463 (1990)]), so within a branch the bias must move mon
 and a point cannot be "inserted" between two measured ones afterwards. So the sweep of a
 sample is made of passes, each a full loop at the plan's polarity (benchkit.sweep runs them):
 
-    pass 1 (coarse): 0 V -> top at `coarse_points` evenly spaced biases (rising), then back
-        from the top to 0 V at `coarse_points - 1` more (falling).
+    pass 1 (coarse): 0 V -> top (rising), then back from the top to 0 V at the same biases
+        (falling). Its rising steps are planned one at a time, each aiming at a change of C
+        of `coarse_step_pct_of_C0` from the slope of the step before, none but the last
+        longer than the even step top/(coarse_points - 1) (`coarse_spacing = "stepped"`,
+        the default; see LoopPlanner._continue_first), so the knee of a steep part gets its
+        points in the first loop and a flat part about the even loop; `coarse_spacing =
+        "even"` takes `coarse_points` evenly spaced biases.
     pass k >= 2: back to 0 V (if it has rising points), rise through its new rising points,
         go on without reading up to the same top, fall through its new falling points. At
         each such turning point the engine waits for the part to charge (the dwell policy's
@@ -17,13 +22,13 @@ sample is made of passes, each a full loop at the plan's polarity (benchkit.swee
         falling branch.
 
 After every pass each branch is fitted (fits.fit_sweep, the plan's model, "auto" by
-default; per-point sigma from the pooled relative scatter of the readings, see
-`branch_data`). Its band is U(V) = k*u_C(V) (k = coverage_k, 2 by default [standard: GUM,
-JCGM 100:2008, expanded uncertainty]) over the whole measured range, in percent of C0 (the
-rising fit at 0 V), widened by a prediction check: each interior point is predicted by the
-same family fitted without it, and the miss counts as band in the gaps beside it (the
-covariance band assumes the law is right; between sparse points a wrong law shows up only
-this way). A branch whose band exceeds `target_band_pct_of_C0` anywhere gets as many new
+default; per-point sigma pooled over the branch as an absolute part plus a part
+proportional to the reading, see `pooled_sigma`). Its band is U(V) = k*u_C(V) (k =
+coverage_k, 2 by default [standard: GUM, JCGM 100:2008, expanded uncertainty]) over the
+whole measured range, in percent of C0 (the rising fit at 0 V), widened by a prediction
+check: each interior point is predicted by the same family fitted without it, and the miss
+counts as band in the gaps beside it (the covariance band assumes the law is right; between
+sparse points a wrong law shows up only this way). A branch whose band exceeds `target_band_pct_of_C0` anywhere gets as many new
 points as it has gaps (between neighbouring measured biases) where the band exceeds the
 target, placed in the gaps ranked by max(band in the gap, chord deviation |C''|*h^2/8 of the
 gap), so points go where the fit is least certain or where the curve bends most (in the
@@ -71,6 +76,11 @@ STOP_STALLED = "no progress: the last pass did not narrow the band"
 # readings, a law that does not follow the part), not by the spacing of the points, and one
 # more loop (two turning points and their waits) buys nothing.
 MIN_PASS_GAIN = 0.1
+# Stepped first loop (LoopPlanner._continue_first): a step is at most this many times the one
+# before (the slope of the last step cannot see a knee ahead), and at least 1/MIN_STEP_DIVISOR
+# of the even loop's step (noise in a flat part's slope must not shrink the steps to nothing).
+STEP_GROWTH = 1.5
+MIN_STEP_DIVISOR = 8.0
 
 
 @dataclass(frozen=True)
@@ -80,6 +90,8 @@ class AdaptiveSettings:
     target_band_pct_of_C0: float = 0.5
     max_points: int = 40
     coarse_points: int = 7
+    coarse_spacing: str = "stepped"  # or "even": coarse_points evenly spaced
+    coarse_step_pct_of_C0: float = 15.0  # the change of C a stepped first loop's step aims at
     coverage_k: float = 2.0
     resolution_V: float | None = None  # None: 1/200 of the top bias
     model: str = "auto"
@@ -96,6 +108,12 @@ class AdaptiveSettings:
             raise ValueError("adaptive: coverage_k must be positive")
         if self.resolution_V is not None and not self.resolution_V > 0:
             raise ValueError("adaptive: resolution_V must be positive")
+        if self.coarse_spacing not in ("stepped", "even"):
+            raise ValueError("adaptive: coarse_spacing must be 'stepped' or 'even'")
+        c = self.coarse_step_pct_of_C0
+        if not (0 < c < 100 and math.isfinite(c)):
+            raise ValueError("adaptive: coarse_step_pct_of_C0 must be a percentage between 0 and "
+                             "100 (the change of C a step of the first loop aims at)")
 
     @classmethod
     def from_plan(cls, table: Mapping) -> "AdaptiveSettings":
@@ -140,6 +158,7 @@ class PassPlan:
     status: dict[str, BranchStatus] = field(default_factory=dict)
     remanent_V: float | None = None
     turn_shift_V: float | None = None
+    open: bool = False  # more points of this pass follow, planned from these (first loop)
 
 
 # --------------------------------------------------------------------------- fitting
@@ -159,10 +178,9 @@ def branch_data(points: Iterable[MeasuredPoint], branch: str, above_V: float | N
     """(bias_V, C_F, sigma_F) of one branch, ordered by |bias|, for a fit.
 
     above_V: leave out points with |bias| above it (the flat turn transition of the falling
-    branch, see the module docstring). sigma: the pooled relative scatter of all points'
-    sigma_F/C_F applied to each C (an LCR meter's error is a percentage of the reading
-    [common practice]); three readings per point give too unsteady single values to weight
-    a fit by. None when the points carry no sigma.
+    branch, see the module docstring). sigma: pooled_sigma of the points' sigma_F (three
+    readings per point give too unsteady single values to weight a fit by); None when the
+    points carry no sigma.
     """
     tol = 1e-9
     pts = [p for p in points if p.branch == branch and p.C_F is not None and p.C_F > 0
@@ -170,11 +188,32 @@ def branch_data(points: Iterable[MeasuredPoint], branch: str, above_V: float | N
     pts.sort(key=lambda p: abs(p.bias_V))
     V = np.array([p.bias_V for p in pts], dtype=float)
     C = np.array([p.C_F for p in pts], dtype=float)
-    rel = [p.sigma_F / p.C_F for p in pts if p.sigma_F is not None and p.sigma_F > 0]
-    sigma = None
-    if rel and len(rel) == len(pts):
-        sigma = math.sqrt(float(np.mean(np.square(rel)))) * C
+    s = np.array([p.sigma_F if p.sigma_F is not None and p.sigma_F > 0 else np.nan for p in pts])
+    sigma = pooled_sigma(C, s) if pts and np.all(np.isfinite(s)) else None
     return V, C, sigma
+
+
+def pooled_sigma(C_F, sigma_F) -> np.ndarray:
+    """Each point's sigma from all of them: sigma^2 = a^2 + (b*C)^2, a part in absolute terms
+    and a part proportional to the reading, a and b from every point's own sigma.
+
+    Why both: an LCR meter's accuracy is a percentage of the reading plus a floor [common
+    practice: the "% of reading + % of range" form of instrument specifications], and a
+    point read off a relaxation fit (settle detection by prediction) is known to a fixed
+    fraction of C0 whatever its bias (benchkit/sweep/settle.py): pooling either part alone
+    mis-weights a curve that falls to a tenth of C0, e.g. a pooled relative scatter over such
+    points gives the 0 V point several times its own uncertainty. The fit is least squares
+    on sigma_i^2 with a^2, b^2 >= 0 (scipy.optimize.nnls), each row divided by sigma_i^2 so
+    that small and large sigmas count alike."""
+    from scipy.optimize import nnls
+
+    C = np.asarray(C_F, dtype=float)
+    s2 = np.square(np.asarray(sigma_F, dtype=float))
+    A = np.column_stack([np.ones_like(C), C * C]) / s2[:, None]
+    (a2, b2), _ = nnls(A, np.ones_like(C))
+    if not a2 + b2 > 0:  # no solution worth the name: the relative scatter pooled alone
+        return math.sqrt(float(np.mean(s2 / (C * C)))) * C
+    return np.sqrt(a2 + b2 * C * C)
 
 
 def fit_branch(points: Iterable[MeasuredPoint], branch: str, model: str = "auto",
@@ -234,20 +273,100 @@ class LoopPlanner:
 
     # -- pass 1 ----------------------------------------------------------------
     def first_pass(self) -> PassPlan:
+        """The start of the first loop: all of it (the even loop), or with stepped coarse
+        points its 0 V point, the rest planned point by point (next_pass, _continue_first)."""
+        if self.s.coarse_spacing == "even":
+            plan = PassPlan(1, self.even_loop(), None)
+        else:
+            plan = PassPlan(1, [("rising", 0.0)], None, open=True)
+        self.history = [plan]
+        return plan
+
+    def even_loop(self) -> list[tuple[str, float]]:
+        """coarse_points evenly spaced from 0 V to the top, and back down at the same biases.
+        With stepped coarse points it is the first loop's fewest points: its first step is
+        half the even one and only its last may be longer, by at most half."""
         mags = [_clean(self.top_mag * i / (self.s.coarse_points - 1))
                 for i in range(self.s.coarse_points)]
         pts = [("rising", self._signed(m)) for m in mags]
         if "falling" in self.branches:
             pts += [("falling", self._signed(m)) for m in reversed(mags[:-1])]
-        plan = PassPlan(1, pts, None)
-        self.history = [plan]
-        return plan
+        return pts
+
+    @property
+    def max_coarse_step_V(self) -> float:
+        return self.top_mag / (self.s.coarse_points - 1)
+
+    @property
+    def min_coarse_step_V(self) -> float:
+        return max(2 * self.resolution_V, self.max_coarse_step_V / MIN_STEP_DIVISOR)
+
+    def _continue_first(self, points: Sequence[MeasuredPoint]) -> list[tuple[str, float]]:
+        """The next points of the first loop: one rising point until the top is reached, then
+        the whole falling branch; [] when the loop is complete.
+
+        Rising: each step aims at a change of C of coarse_step_pct_of_C0 (percent of C0, the
+        0 V reading), from the slope of the last step: h = target/|dC/dV|, at most
+        STEP_GROWTH times the last step and the even loop's step (top/(coarse_points - 1)),
+        at least min_coarse_step_V; a step that would leave less than half a step to the
+        top goes to the top (so the last step is at most 1.5 times the even one: a sliver
+        of a step is one more point on each branch where the curve is flattest). A class-2 curve falls steeply over a few characteristic
+        voltages and flattens above; evenly spaced points waste most of the loop on the flat
+        tail and leave the knee to later loops, each of which costs two turning points. The
+        bias only rises on this branch (module docstring), so a step can only follow from the
+        points before it, as in an integrator's step-size control [published: E. Hairer, S.
+        P. Norsett, G. Wanner, Solving Ordinary Differential Equations I, section II.4, step
+        size control; from memory].
+        Falling: at the rising branch's biases below the top, downwards, so the branch gets
+        the spacing the rising one showed it needs (the branches are one curve shifted by
+        about twice the coercive voltage, Miller) and both branches are read at the same
+        biases (their difference is the hysteresis at each bias [common practice])."""
+        rising = [p for p in points if p.branch == "rising"]
+        last = max(abs(p.bias_V) for p in rising)
+        if last < self.top_mag - 1e-9:
+            return [("rising", self._signed(self._next_rising_mag(rising, last)))]
+        if "falling" in self.branches and not any(p.branch == "falling" for p in points):
+            mags = sorted({_clean(abs(p.bias_V)) for p in rising if abs(p.bias_V) < self.top_mag - 1e-9},
+                          reverse=True)
+            return [("falling", self._signed(m)) for m in mags]
+        return []
+
+    def _next_rising_mag(self, rising: Sequence[MeasuredPoint], last: float) -> float:
+        h_max, h_min = self.max_coarse_step_V, self.min_coarse_step_V
+        read = sorted(((abs(p.bias_V), p.C_F) for p in rising if p.C_F is not None and p.C_F > 0))
+        if len(read) < 2:
+            h = 0.5 * h_max  # no slope yet: half a step, as a step-size control starts
+        else:
+            (v1, c1), (v2, c2) = read[-2], read[-1]
+            h_last = v2 - v1
+            slope = abs(c2 - c1) / h_last / read[0][1]  # fraction of C0 per volt
+            target = self.s.coarse_step_pct_of_C0 / 100.0
+            h = target / slope if slope > 0 else math.inf
+            h = max(min(h, STEP_GROWTH * h_last, h_max), h_min)
+        nxt = last + h
+        if self.top_mag - nxt < 0.5 * h:  # no sliver of a last step: it goes to the top
+            return self.top_mag
+        nxt = round(nxt / self.resolution_V) * self.resolution_V
+        return _clean(min(max(nxt, last + self.resolution_V), self.top_mag))
+
+    @property
+    def passes_measured(self) -> int:
+        """Loops with points measured (a first loop planned point by point counts once)."""
+        return len({p.index for p in self.history if p.points})
 
     # -- later passes ------------------------------------------------------------
     def next_pass(self, points: Sequence[MeasuredPoint]) -> PassPlan:
-        """The pass after the ones measured in `points` (all points of this sample so far)."""
-        index = len(self.history) + 1
+        """The pass after the points measured so far (all points of this sample), or the next
+        points of a first loop planned point by point (the same pass index, open)."""
         points = list(points)
+        last = self.history[-1] if self.history else None
+        if last is not None and last.open:
+            more = self._continue_first(points)
+            if more:
+                rising_on = more[0][0] == "rising"  # the falling branch ends the loop
+                return self._record(PassPlan(last.index, more, None, open=rising_on))
+            last.open = False
+        index = (last.index if last is not None else 0) + 1
         fits = {b: self._fit(points, b) for b in self.branches}
         C0 = self._C0(fits, points)
         if index == 2:  # what the coarse loop says about the part's history (docstring)
@@ -492,5 +611,5 @@ class LoopPlanner:
 
 
 __all__ = ["AdaptiveSettings", "LoopPlanner", "MeasuredPoint", "BranchStatus", "PassPlan",
-           "branch_data", "fit_branch", "band_pct_of_C0", "curvature_per_V2",
+           "branch_data", "pooled_sigma", "fit_branch", "band_pct_of_C0", "curvature_per_V2",
            "STOP_TARGET", "STOP_BUDGET", "STOP_RESOLUTION", "STOP_STALLED", "MIN_PASS_GAIN"]

@@ -74,7 +74,7 @@ class AdaptivePasses:
         if entry is None or last is None:
             return
         entry["adaptive"] = {
-            "passes": max(1, len(planner.history) - (0 if last.points else 1)),
+            "passes": max(1, planner.passes_measured),
             "stop_reason": last.stop_reason,
             "n_points": len(self._measured.get(sw.sample.sample_id) or []),
             "top_V": planner.top_V,
@@ -93,4 +93,5 @@ def _pass_record(p) -> dict:
         "status": {b: st.to_dict() for b, st in p.status.items()},
         "remanent_V": p.remanent_V,
         "turn_shift_V": getattr(p, "turn_shift_V", None),
+        "open": bool(getattr(p, "open", False)),
     }

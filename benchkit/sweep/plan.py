@@ -522,6 +522,9 @@ def _parse_settle(raw: Mapping, where: str) -> dict:
     return st
 
 
+COARSE_SPACINGS = ("stepped", "even")
+
+
 def _parse_adaptive(raw: Mapping, bias: Mapping, where: str) -> dict:
     """[adaptive]: the target and budget of adaptive bias steps (benchkit/sweep/adaptive.py)."""
     f = _Fields(raw, where, "adaptive.")
@@ -530,6 +533,11 @@ def _parse_adaptive(raw: Mapping, bias: Mapping, where: str) -> dict:
                                           hi=100.0),
         "max_points": f.integer("max_points", default=40, lo=3, hi=10000),
         "coarse_points": f.integer("coarse_points", default=7, lo=3, hi=1000),
+        # the first loop: "stepped" (each step aims at a change of C) or "even" (coarse_points
+        # evenly spaced); benchkit/sweep/adaptive.py LoopPlanner._continue_first
+        "coarse_spacing": f.choice("coarse_spacing", COARSE_SPACINGS, default="stepped"),
+        "coarse_step_pct_of_C0": f.number("coarse_step_pct_of_C0", default=15.0, positive=True,
+                                          hi=99.0),
         "coverage_k": f.number("coverage_k", default=2.0, positive=True, hi=10.0),
         "resolution_V": f.number("resolution_V", default=None, positive=True, hi=MAX_BIAS_V),
         "model": f.string("model", default="auto", nonempty=True),
@@ -699,6 +707,8 @@ def discharge_wait_s(plan: Plan, sweeps: Iterable[SampleSweep]) -> tuple[float, 
     for sw in sweeps:
         v0 = max(abs(v) for _, v in sw.points.seq) if isinstance(sw.points, PlannedPoints) \
             else max(abs(p.bias_V) for p in sw.points)
+        if sw.adaptive is not None:  # its loops reach the planner's top, planned or not yet
+            v0 = max(v0, abs(sw.adaptive.top_V))
         if v0 > lim["safe_V"]:
             best = max(best, lim["discharge_R_ohm"] * sw.part.nominal_C_F * math.log(v0 / lim["safe_V"]))
     if best > MAX_DWELL_S:

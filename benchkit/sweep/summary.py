@@ -19,11 +19,15 @@ def expected_duration_s(plan: Plan, sw: SampleSweep) -> tuple[float, float]:
     """(shortest, longest) time the planned points of one sample take on the clock."""
     rate = plan.max_ramp_V_per_s
     ramp, prev = 0.0, 0.0
-    for p in sw.points:
-        ramp += abs(p.bias_V - prev) / rate
-        prev = p.bias_V
+    # adaptive steps: the first loop at its fewest points (a stepped one is planned point by
+    # point and has at least the even loop's, LoopPlanner.even_loop)
+    biases = [v for _, v in sw.adaptive.even_loop()] if sw.adaptive is not None \
+        else [p.bias_V for p in sw.points]
+    for v in biases:
+        ramp += abs(v - prev) / rate
+        prev = v
     ramp += abs(prev) / rate  # back to 0 V at the end of the sample
-    n = len(sw.points)
+    n = len(biases)
     if plan.measure["dwell"] == "settle" and plan.settle is not None:
         # a point waits at least the plan's minimum (the charge wait is sized from the C the
         # part reads at each bias, benchkit/sweep/settle.py), and at most the maximum dwell
@@ -44,11 +48,12 @@ def sample_lines(plan: Plan, sweeps: Iterable[SampleSweep], above: Iterable[str]
         lo, hi = expected_duration_s(plan, sw)
         dur = format_duration(lo) if hi <= lo else f"{format_duration(lo)} .. {format_duration(hi)}"
         more = " (adaptive: more passes may follow)" if sw.adaptive is not None else ""
+        npts = f"at least {len(sw.adaptive.even_loop())}" if sw.adaptive is not None else len(sw.points)
         warn = " ABOVE RATING" if sw.sample.sample_id in above else ""
         out.append(
             f"{sw.sample.sample_id} ({sw.part.id}, rated {sw.part.rated_V:g} V, channel "
             f"{sw.sample.channel}): up to {top:g} V{warn}, current limit {plan.current_limit_A:g} A, "
-            f"ramp {plan.max_ramp_V_per_s:g} V/s, {len(sw.points)} points, about {dur}{more}")
+            f"ramp {plan.max_ramp_V_per_s:g} V/s, {npts} points, about {dur}{more}")
     return out
 
 

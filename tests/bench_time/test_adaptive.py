@@ -13,6 +13,7 @@ import pytest
 
 from benchkit.sweep.adaptive import (
     STOP_BUDGET, STOP_RESOLUTION, STOP_TARGET, AdaptiveSettings, LoopPlanner, MeasuredPoint, fit_branch,
+    branch_data, pooled_sigma,
 )
 from benchkit.sweep.settle import SettleDetector
 
@@ -37,13 +38,16 @@ def sharp_knee():
     return (spec,) + adaptive_run(spec)
 
 
+EVEN = AdaptiveSettings(target_band_pct_of_C0=0.5, max_points=40, coarse_points=7, coarse_spacing="even")
+
+
 def test_first_pass_is_an_even_coarse_loop():
-    p = LoopPlanner(6.3, SETTINGS).first_pass()
+    p = LoopPlanner(6.3, EVEN).first_pass()
     rising = [v for b, v in p.points if b == "rising"]
     falling = [v for b, v in p.points if b == "falling"]
     assert rising == pytest.approx(np.linspace(0, 6.3, 7))  # coarse_points from 0 V to the top
     assert falling == pytest.approx(np.linspace(0, 6.3, 7)[-2::-1])  # back down, top = the turn
-    neg = LoopPlanner(-10.0, SETTINGS).first_pass()
+    neg = LoopPlanner(-10.0, EVEN).first_pass()
     assert max(v for _, v in neg.points) == 0.0 and min(v for _, v in neg.points) == -10.0
 
 
@@ -91,9 +95,94 @@ def test_stops_at_the_point_budget():
 
 def test_stops_when_the_band_is_inside_the_target():
     spec = part_spec("BD-1008")  # C0G: flat, the coarse loop already pins it down
-    _, _, points, passes, last = adaptive_run(spec, AdaptiveSettings(5.0, 40, 7))
+    _, _, points, passes, last = adaptive_run(spec, AdaptiveSettings(5.0, 40, 7, coarse_spacing="even"))
     assert last.stop_reason == STOP_TARGET and len(passes) == 1 and len(points) == 13
     assert all(st.band_pct_of_C0 <= 5.0 for st in last.status.values())
+    # stepped (the default): a flat part's steps grow from half the even step to the even
+    # step (at most 1.5 times the one before) and stay there
+    _, planner, points, passes, last = adaptive_run(spec, AdaptiveSettings(5.0, 40, 7))
+    assert last.stop_reason == STOP_TARGET and planner.passes_measured == 1
+    rising = [abs(p.bias_V) for p in points if p.branch == "rising"]
+    h = spec.rated_V / 6
+    steps, res = np.diff(rising), planner.resolution_V
+    assert steps[0] == pytest.approx(h / 2, abs=res)
+    assert steps[1:-1] == pytest.approx(np.minimum(1.5 * steps[:-2], h), abs=2 * res)
+    assert 0 < steps[-1] <= h + res and rising[-1] == spec.rated_V
+
+
+def run_first_loop(C_of_V, top_V, settings):
+    """The stepped first loop on a noise-free curve: the planner's own points, measured."""
+    planner = LoopPlanner(top_V, settings)
+    plan = planner.first_pass()
+    points = []
+    while plan.index == 1 and plan.points:
+        points += [MeasuredPoint(b, v, float(C_of_V(v, b)), 1e-12) for b, v in plan.points]
+        plan = planner.next_pass(points)
+    return planner, points
+
+
+def test_stepped_first_loop_puts_short_steps_where_C_changes_fast():
+    # rational law C0/(1 + (V/Vh)^2): C(Vh) = C0/2, |dC/dV| largest at Vh/sqrt(3), falling
+    # above [derived]; a 6 V top over Vh = 1 V is the steep low-voltage part of the issue
+    C0, Vh, top = 10e-6, 1.0, 6.0
+    law = lambda v, b: C0 / (1.0 + (v / Vh) ** 2)
+    s = AdaptiveSettings(0.5, 40, 7, coarse_step_pct_of_C0=15.0)
+    planner, points = run_first_loop(law, top, s)
+    rising = np.array([p.bias_V for p in points if p.branch == "rising"])
+    falling = [p.bias_V for p in points if p.branch == "falling"]
+    assert rising[0] == 0.0 and rising[-1] == top and np.all(np.diff(rising) > 0)
+    steps = np.diff(rising)
+    assert steps[:-1].max() <= top / 6 + 1e-9  # never longer than the even loop's step,
+    assert steps[-1] <= 1.5 * top / 6 + 1e-9  # but the last, which leaves no sliver
+    assert falling == list(rising[-2::-1])  # back down at the rising biases
+    # above Vh |dC/dV| only falls, so a step sized from the one before changes C by at most
+    # the aim (mean value theorem [published: any calculus text; from memory])
+    C = law(rising, "rising")
+    tail = rising[:-1] >= Vh
+    assert np.all(np.abs(np.diff(C))[tail] / C0 <= 0.15 + 1e-9)
+    # more points per volt over the knee than over the tail, unlike an even loop
+    per_V = lambda lo, hi: np.sum((rising >= lo) & (rising <= hi)) / (hi - lo)
+    assert per_V(0.0, 2.0) > 2 * per_V(3.0, 6.0)
+    assert len(rising) > 7
+    # control: the even loop has the same density everywhere
+    even = LoopPlanner(top, AdaptiveSettings(0.5, 40, 7, coarse_spacing="even")).first_pass()
+    ev = np.array([v for b, v in even.points if b == "rising"])
+    assert np.sum(ev <= 2.0) / 2.0 <= 2 * np.sum(ev >= 3.0) / 3.0
+
+
+def test_stepped_first_loop_of_a_negative_polarity_mirrors_the_positive_one():
+    C0, Vh = 10e-6, 2.0
+    law = lambda v, b: C0 / (1.0 + (v / Vh) ** 2)  # even in V [derived]
+    s = AdaptiveSettings(0.5, 40, 7)
+    _, pos = run_first_loop(law, 10.0, s)
+    _, neg = run_first_loop(law, -10.0, s)
+    assert [(p.branch, -p.bias_V) for p in neg] == [(p.branch, p.bias_V) for p in pos]
+
+
+def test_pooled_sigma_follows_an_absolute_and_a_relative_part():
+    # sigma^2 = a^2 + (b*C)^2, the "% of reading + floor" form of an instrument
+    # specification [common practice]; the pooled values against numpy's least squares on
+    # the same (exactly solvable) system
+    C = np.array([10.0, 8.0, 5.0, 3.0, 2.0, 1.2]) * 1e-6
+    a, b = 0.012e-6, 0.002
+    s = np.sqrt(a ** 2 + (b * C) ** 2)
+    got = pooled_sigma(C, s)
+    A = np.column_stack([np.ones_like(C), C * C]) / (s * s)[:, None]
+    x, *_ = np.linalg.lstsq(A, np.ones_like(C), rcond=None)
+    assert got == pytest.approx(np.sqrt(x[0] + x[1] * C * C), rel=1e-9)
+    assert got == pytest.approx(s, rel=1e-6)
+    # a settle prediction's points: a fixed fraction of C0 at every bias; pooling the
+    # relative scatter instead would give the 0 V point several times its own sigma
+    u = np.full(C.shape, 0.0015 * C[0])
+    assert pooled_sigma(C, u) == pytest.approx(u, rel=1e-6)
+    rel_pool = np.sqrt(np.mean((u / C) ** 2)) * C
+    assert rel_pool[0] > 3 * u[0]
+    # and the planner's fits weight the branch so
+    pts = [MeasuredPoint("rising", float(v), float(c), float(x)) for v, c, x in zip(range(6), C, u)]
+    _, _, sigma = branch_data(pts, "rising")
+    assert sigma == pytest.approx(u, rel=1e-6)
+    # a meter's scatter proportional to the reading stays so
+    assert pooled_sigma(C, 1e-3 * C) == pytest.approx(1e-3 * C, rel=1e-6)
 
 
 def test_adaptive_curves_agree_with_the_true_settled_curve():
@@ -157,5 +246,9 @@ def test_budget_below_the_coarse_loop_is_refused():
         AdaptiveSettings(0.5, max_points=40, coarse_points=2)
     with pytest.raises(ValueError, match="top bias"):
         LoopPlanner(0.0, SETTINGS)
+    with pytest.raises(ValueError, match="coarse_spacing"):
+        AdaptiveSettings(0.5, coarse_spacing="random")
+    with pytest.raises(ValueError, match="coarse_step_pct_of_C0"):
+        AdaptiveSettings(0.5, coarse_step_pct_of_C0=0.0)
     m = MeasuredPoint("rising", 1.0, 1e-6, None)
     assert m.sigma_F is None

@@ -7,7 +7,9 @@ from pathlib import Path
 
 import pytest
 
-from benchkit.sweep.adaptive import MIN_PASS_GAIN, STOP_STALLED
+from benchkit.sweep.adaptive import (
+    MIN_PASS_GAIN, STOP_STALLED, AdaptiveSettings, LoopPlanner, measured_point,
+)
 from benchkit.errors import UserError
 from benchkit.sweep.plan import parse_plan
 from benchkit.sweep.runlog import FLAGS
@@ -132,7 +134,7 @@ def test_adaptive_run_resumes_the_pass_it_was_in(tmp_path):
     # a target of 0.2 % makes pass 2 long enough (8 points) to be interrupted inside it; at
     # 0.5 % the leave-one-out choice of the fits meets the target after one extra point
     p = plan(FX05, {"points_V": [0.0, 10.0]},
-             adaptive=dict(ADAPTIVE, target_band_pct_of_C0=0.2))
+             adaptive=dict(ADAPTIVE, target_band_pct_of_C0=0.2, coarse_spacing="even"))
     clock = VirtualClock()
     with demo_bench(clock=clock) as bench:
         res = run_sweep(bench, p, tmp_path / "run", clock, CtrlCAfter(15), parts=PARTS)
@@ -150,6 +152,34 @@ def test_adaptive_run_resumes_the_pass_it_was_in(tmp_path):
     assert got2 == planned2["points_V"]
     assert flags_besides_level(rows[15], PARTS[rows[15]["part_id"]].nominal_C_F) == "resumed"
     assert read_meta(tmp_path / "run")["samples"][0]["adaptive"]["stop_reason"]
+
+
+def test_adaptive_run_resumes_inside_a_stepped_first_loop(tmp_path):
+    # the stepped first loop is planned point by point from the points measured; a resume
+    # feeds the rows on disk to a fresh planner and must measure the point that was next
+    p = plan(FX03, {"points_V": [0.0, 6.0]}, adaptive=dict(ADAPTIVE))
+    clock = VirtualClock()
+    with demo_bench(clock=clock) as bench:
+        res = run_sweep(bench, p, tmp_path / "run", clock, CtrlCAfter(4), parts=PARTS)
+        assert res.status == "aborted" and safe(bench)
+        first = read_meta(tmp_path / "run")
+        planned = [e for e in first["events"] if e["event"] == "adaptive_pass"]
+        assert all(e["pass"] == 1 and e["open"] for e in planned)
+        assert len(read_rows(tmp_path / "run")) == 4
+        res2 = resume_sweep(tmp_path / "run", bench, clock)
+        assert res2.status == "complete" and safe(bench)
+    rows = read_rows(tmp_path / "run")
+    # what the interrupted session would have measured next: a fresh planner fed its 4 rows
+    planner = LoopPlanner(6.0, AdaptiveSettings.from_plan(ADAPTIVE))
+    planner.first_pass()
+    nxt = planner.next_pass([measured_point(r) for r in rows[:4]])
+    assert nxt.index == 1 and [(rows[4]["branch"], float(rows[4]["bias_set_V"]))] == nxt.points
+    assert flags_besides_level(rows[4], PARTS[rows[4]["part_id"]].nominal_C_F) == "resumed"
+    assert [int(r["step_index"]) for r in rows] == list(range(len(rows)))
+    one = [(r["branch"], float(r["bias_set_V"])) for r in rows if r["repeat"] == "1"]
+    rising = [v for b, v in one if b == "rising"]
+    assert rising[0] == 0.0 and rising[-1] == 6.0 and rising == sorted(set(rising))
+    assert [v for b, v in one if b == "falling"] == rising[-2::-1]
 
 
 @pytest.mark.parametrize("change, field", [
