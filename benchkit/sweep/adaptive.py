@@ -478,7 +478,9 @@ class LoopPlanner:
             curve = fit.curve
             lo, hi = (abs(x) for x in curve.valid_range_V)
             lo, hi = min(lo, hi), max(lo, hi)
-            grid = self.grid_mag[(self.grid_mag >= lo - 1e-12) & (self.grid_mag <= hi + 1e-12)]
+            # clipped: a grid point a rounding error beyond the curve's range has no band
+            grid = np.clip(self.grid_mag[(self.grid_mag >= lo - 1e-12) & (self.grid_mag <= hi + 1e-12)],
+                           lo, hi)
             signed = self.sign * grid
             band_in = band_pct_of_C0(curve, C0, self.s.coverage_k, signed)
             bend_in = 100.0 * curvature_per_V2(curve, signed) / C0 if grid.size >= 5 else np.zeros(grid.size)

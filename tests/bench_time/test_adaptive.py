@@ -252,3 +252,19 @@ def test_budget_below_the_coarse_loop_is_refused():
         AdaptiveSettings(0.5, coarse_step_pct_of_C0=0.0)
     m = MeasuredPoint("rising", 1.0, 1e-6, None)
     assert m.sigma_F is None
+
+
+def test_band_of_a_branch_ending_between_grid_points_is_finite():
+    # 8.7 V is grid point 348 of 401 over 0..10 V, 8.700000000000001 in floating point
+    # [IEEE 754 rounding, numpy.linspace]: just beyond a curve that ends at 8.7 V, where a
+    # spline has no value; the band there must be the curve's end, not NaN (which fails
+    # every comparison and passed for an unmet target)
+    assert np.linspace(0.0, 10.0, 401)[348] > 8.7
+    V = np.array([0.0, 0.85, 2.1, 3.75, 5.4, 7.05, 8.7])
+    C = 22e-6 / (1.0 + (V / 4.0) ** 2)  # rational law [derived]
+    pts = [MeasuredPoint("falling", float(v), float(c), 2e-9) for v, c in zip(V, C)]
+    planner = LoopPlanner(10.0, AdaptiveSettings(0.5, 40, 7, model="spline"))
+    fit = fit_branch(pts, "falling", "spline")
+    assert fit.curve.valid_range_V[1] == 8.7
+    st, _ = planner._assess("falling", fit, pts, float(C[0]))
+    assert np.isfinite(st.band_pct_of_C0)
