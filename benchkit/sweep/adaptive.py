@@ -350,6 +350,20 @@ class LoopPlanner:
         return _clean(min(max(nxt, last + self.resolution_V), self.top_mag))
 
     @property
+    def least_points_ahead(self) -> int:
+        """Points an open first loop will still plan, at least, beyond those planned so far
+        (a progress line's total would otherwise read 100 % at every point of it): rising
+        steps of at most the even step (the last at most 1.5 of it) up to the top, then the
+        falling branch at the rising biases below the top."""
+        planned = [(b, abs(v)) for h in self.history if h.index == 1 for b, v in h.points]
+        if not (self.history and self.history[-1].open) or not planned:
+            return 0
+        rising = [m for b, m in planned if b == "rising"]
+        left, h = self.top_mag - max(rising), self.max_coarse_step_V
+        more = 0 if left <= 1e-9 else 1 + max(0, math.ceil((left - 1.5 * h) / h - 1e-9))
+        return more + ((len(rising) + more - 1) if "falling" in self.branches else 0)
+
+    @property
     def passes_measured(self) -> int:
         """Loops with points measured (a first loop planned point by point counts once)."""
         return len({p.index for p in self.history if p.points})

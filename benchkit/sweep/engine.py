@@ -81,8 +81,9 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
 
     # -- the sweep -----------------------------------------------------------
     def run(self) -> None:
-        if self.progress is not None:
-            self.progress.start(self.total, self.done)
+        if self.progress is not None:  # with the points a stepped first loop has still to plan
+            ahead = sum(sw.adaptive.least_points_ahead for sw in self.sweeps if sw.adaptive is not None)
+            self.progress.start(self.total + ahead, self.done)
         skip = self.done  # points already on disk, in plan order (resume)
         s = self.supply
         if s.output_on:  # e.g. left on by a killed run: never jump a charged part to 0 V

@@ -114,10 +114,12 @@ def run_first_loop(C_of_V, top_V, settings):
     """The stepped first loop on a noise-free curve: the planner's own points, measured."""
     planner = LoopPlanner(top_V, settings)
     plan = planner.first_pass()
-    points = []
+    points, totals = [], []
     while plan.index == 1 and plan.points:
+        totals.append(len(points) + len(plan.points) + planner.least_points_ahead)
         points += [MeasuredPoint(b, v, float(C_of_V(v, b)), 1e-12) for b, v in plan.points]
         plan = planner.next_pass(points)
+    planner.totals = totals  # what a progress line would have shown as its total
     return planner, points
 
 
@@ -144,6 +146,10 @@ def test_stepped_first_loop_puts_short_steps_where_C_changes_fast():
     per_V = lambda lo, hi: np.sum((rising >= lo) & (rising <= hi)) / (hi - lo)
     assert per_V(0.0, 2.0) > 2 * per_V(3.0, 6.0)
     assert len(rising) > 7
+    # the progress total: never above the loop's final count, and the even loop's at first
+    # (2 * coarse_points - 1 points: every step at most the even one, the last 1.5 of it)
+    assert planner.totals[0] == 13 and max(planner.totals) <= len(points)
+    assert planner.totals[-1] == len(points)
     # control: the even loop has the same density everywhere
     even = LoopPlanner(top, AdaptiveSettings(0.5, 40, 7, coarse_spacing="even")).first_pass()
     ev = np.array([v for b, v in even.points if b == "rising"])
