@@ -63,6 +63,16 @@ class SplineModel(TableModel):
         B[(V < knots[0]) | (V > knots[-1]) | np.isnan(V)] = np.nan
         return B
 
+    def C(self, V, **params):
+        """The spline through the knot values: for one set of parameters as the basis times
+        the values (the same not-a-knot spline, without building a CubicSpline each time:
+        model choice evaluates every candidate on a fine grid); arrays as a table does."""
+        if any(np.ndim(params[n]) for n in self.param_names):
+            return super().C(V, **params)
+        knots, values = self.points(params)
+        V = np.asarray(V, dtype=float)
+        return (self._basis(V.ravel(), knots) @ values).reshape(V.shape)
+
     def jacobian(self, V, params):
         return self.jacobian_of(V, params, self.param_names)
 

@@ -37,6 +37,27 @@ def test_power_basis_spans_the_not_a_knot_space(k):
     assert np.linalg.matrix_rank(P) == k
 
 
+@pytest.mark.parametrize("k", [4, 5, 8, 12])
+def test_C_is_scipys_not_a_knot_spline_through_the_knot_values(k):
+    # reference: scipy.interpolate.CubicSpline(bc_type="not-a-knot", extrapolate=False);
+    # outside the knots NaN (no extrapolation), a scalar bias gives a scalar
+    spec = models.get("spline", n_points=k)
+    rng = np.random.default_rng(k)
+    kn = np.sort(np.concatenate([[0.0, 6.3], rng.uniform(0.2, 6.1, k - 2)]))
+    vals = 1e-6 * (1.0 + 0.1 * rng.standard_normal(k))
+    params = spec.params_from_points(kn, vals)
+    V = np.concatenate([np.linspace(0.0, 6.3, 257), [-0.01, 6.31, np.nan]])
+    ref = CubicSpline(kn, vals, bc_type="not-a-knot", extrapolate=False)(V)
+    got = spec.C(V, **params)
+    np.testing.assert_allclose(got, ref, rtol=1e-9, atol=1e-18)
+    assert np.all(np.isnan(got[-3:])) and got.shape == V.shape
+    assert np.ndim(spec.C(1.0, **params)) == 0
+    one = CubicSpline(kn, vals, bc_type="not-a-knot")(1.0)
+    assert float(spec.C(1.0, **params)) == pytest.approx(float(one), rel=1e-9)
+    grid = spec.C(V[:5].reshape(5, 1), **params)  # shapes are kept
+    assert grid.shape == (5, 1)
+
+
 @pytest.mark.parametrize("k", [4, 6, 12])
 def test_jacobian_in_knot_values_is_scipys_spline_through_the_unit_vectors(k):
     # dC/dC_j is the not-a-knot spline through the j-th unit vector: scipy's CubicSpline
