@@ -67,6 +67,12 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
             self._raw["chamber"] = chamber
         self._watch_links()
 
+    def progress_total(self) -> int:
+        """The points planned, and those every stepped first loop still has to plan at least
+        (benchkit/sweep/adaptive.py least_points_ahead): what the progress line counts to."""
+        return self.total + sum(sw.adaptive.least_points_ahead for sw in self.sweeps
+                                if sw.adaptive is not None)
+
     def t_s(self) -> float:
         return self.t_offset + (self.clock.now() - self.t0)
 
@@ -81,9 +87,8 @@ class SweepEngine(PointMeasurement, AdaptivePasses, LinkRecoveries, TemperatureV
 
     # -- the sweep -----------------------------------------------------------
     def run(self) -> None:
-        if self.progress is not None:  # with the points a stepped first loop has still to plan
-            ahead = sum(sw.adaptive.least_points_ahead for sw in self.sweeps if sw.adaptive is not None)
-            self.progress.start(self.total + ahead, self.done)
+        if self.progress is not None:
+            self.progress.start(self.progress_total(), self.done)
         skip = self.done  # points already on disk, in plan order (resume)
         s = self.supply
         if s.output_on:  # e.g. left on by a killed run: never jump a charged part to 0 V

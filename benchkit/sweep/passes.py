@@ -30,7 +30,7 @@ class AdaptivePasses:
                    for i, (br, v) in enumerate(nxt.points)]
             self.total += len(new)
             if self.progress is not None:
-                self.progress.total = self.total + planner.least_points_ahead
+                self.progress.total = self.progress_total()
             for i, p in enumerate(new):
                 self._take_point(sw, p, resumed=resumed and i == 0)
         self._adaptive_record(sw)

@@ -182,6 +182,40 @@ def test_adaptive_run_resumes_inside_a_stepped_first_loop(tmp_path):
     assert [v for b, v in one if b == "falling"] == rising[-2::-1]
 
 
+def test_progress_total_counts_every_samples_stepped_loop_still_to_come(tmp_path):
+    # two adaptive samples: the total the progress line counts to includes, at every point,
+    # the first loop each sample will still plan at least (the even loop's 2*7 - 1 points for
+    # one not begun), and never runs past what the run measured
+    import io
+
+    from benchkit.sweep.progress import Progress
+
+    seen = []  # (points done, the total counted to) at every saved point
+
+    class Totals(Progress):
+        def point(self, done, text):
+            super().point(done, text)
+            seen.append((done, self.total))
+
+    fx02 = {"sample_id": "FX-02", "part_id": "BD-1002", "channel": 2}
+    p = parse_plan({"name": "t", "samples": [FX03, fx02], "bias": {"points_V": [0.0, 6.0]},
+                    "measure": {"dwell": "settle", "n_readings": 3}, "settle": dict(SETTLE),
+                    "limits": dict(LIMITS), "adaptive": dict(ADAPTIVE, target_band_pct_of_C0=5.0)},
+                   "test plan")
+    prog = Totals(stream=io.StringIO(), tty=False)
+    clock = VirtualClock()
+    with demo_bench(clock=clock) as bench:
+        res = run_sweep(bench, p, tmp_path / "run", clock, prog, parts=PARTS, handle_signals=False)
+        assert res.status == "complete" and safe(bench)
+    rows = read_rows(tmp_path / "run")
+    n_first = sum(1 for r in rows if r["sample_id"] == "FX-03")
+    assert 0 < n_first < len(rows)
+    assert all(done <= total <= len(rows) for done, total in seen)
+    # at the first sample's last point the second sample's whole first loop is still ahead
+    assert dict(seen)[n_first] >= n_first + 13
+    assert seen[-1] == (len(rows), len(rows))
+
+
 @pytest.mark.parametrize("change, field", [
     ({"measure": {"dwell": "settle"}, "settle": None}, "'settle'"),
     ({"settle": {"max_drift_pct_per_s": 0.01}}, "settle.max_dwell_s"),
