@@ -28,9 +28,9 @@ coverage_k, 2 by default [standard: GUM, JCGM 100:2008, expanded uncertainty]) o
 whole measured range, in percent of C0 (the rising fit at 0 V), widened by a prediction
 check: each interior point is predicted by the same family fitted without it, and the miss
 counts as band in the gaps beside it (the covariance band assumes the law is right; between
-sparse points a wrong law shows up only this way). A branch whose band exceeds `target_band_pct_of_C0` anywhere gets as many new
-points as it has gaps (between neighbouring measured biases) where the band exceeds the
-target, placed in the gaps ranked by max(band in the gap, chord deviation |C''|*h^2/8 of the
+sparse points a wrong law shows up only this way). A branch whose band exceeds
+`target_band_pct_of_C0` anywhere gets as many new points as it has gaps (between
+neighbouring measured biases) where the band exceeds the target, placed in the gaps ranked by max(band in the gap, chord deviation |C''|*h^2/8 of the
 gap), so points go where the fit is least certain or where the curve bends most (in the
 middle half of the gap: at the widest band, or in the middle when the bend ranks it). A
 branch whose band exceeds the target only where no point can go (below `remanent_V`, or in
@@ -81,6 +81,7 @@ MIN_PASS_GAIN = 0.1
 # of the even loop's step (noise in a flat part's slope must not shrink the steps to nothing).
 STEP_GROWTH = 1.5
 MIN_STEP_DIVISOR = 8.0
+COARSE_SPACINGS = ("stepped", "even")  # the first loop: planned point by point, or even
 
 
 @dataclass(frozen=True)
@@ -108,8 +109,9 @@ class AdaptiveSettings:
             raise ValueError("adaptive: coverage_k must be positive")
         if self.resolution_V is not None and not self.resolution_V > 0:
             raise ValueError("adaptive: resolution_V must be positive")
-        if self.coarse_spacing not in ("stepped", "even"):
-            raise ValueError("adaptive: coarse_spacing must be 'stepped' or 'even'")
+        if self.coarse_spacing not in COARSE_SPACINGS:
+            raise ValueError("adaptive: coarse_spacing must be one of "
+                             + ", ".join(map(repr, COARSE_SPACINGS)))
         c = self.coarse_step_pct_of_C0
         if not (0 < c < 100 and math.isfinite(c)):
             raise ValueError("adaptive: coarse_step_pct_of_C0 must be a percentage between 0 and "
@@ -310,9 +312,10 @@ class LoopPlanner:
         STEP_GROWTH times the last step and the even loop's step (top/(coarse_points - 1)),
         at least min_coarse_step_V; a step that would leave less than half a step to the
         top goes to the top (so the last step is at most 1.5 times the even one: a sliver
-        of a step is one more point on each branch where the curve is flattest). A class-2 curve falls steeply over a few characteristic
-        voltages and flattens above; evenly spaced points waste most of the loop on the flat
-        tail and leave the knee to later loops, each of which costs two turning points. The
+        of a step is one more point on each branch where the curve is flattest). A class-2
+        curve falls steeply over a few characteristic voltages and flattens above; evenly
+        spaced points waste most of the loop on the flat tail and leave the knee to later
+        loops, each of which costs two turning points. The
         bias only rises on this branch (module docstring), so a step can only follow from the
         points before it, as in an integrator's step-size control [published: E. Hairer, S.
         P. Norsett, G. Wanner, Solving Ordinary Differential Equations I, section II.4, step
@@ -628,4 +631,5 @@ class LoopPlanner:
 
 __all__ = ["AdaptiveSettings", "LoopPlanner", "MeasuredPoint", "BranchStatus", "PassPlan",
            "branch_data", "pooled_sigma", "fit_branch", "band_pct_of_C0", "curvature_per_V2",
-           "STOP_TARGET", "STOP_BUDGET", "STOP_RESOLUTION", "STOP_STALLED", "MIN_PASS_GAIN"]
+           "STOP_TARGET", "STOP_BUDGET", "STOP_RESOLUTION", "STOP_STALLED", "MIN_PASS_GAIN",
+           "COARSE_SPACINGS"]

@@ -522,25 +522,28 @@ def _parse_settle(raw: Mapping, where: str) -> dict:
     return st
 
 
-COARSE_SPACINGS = ("stepped", "even")
-
-
 def _parse_adaptive(raw: Mapping, bias: Mapping, where: str) -> dict:
-    """[adaptive]: the target and budget of adaptive bias steps (benchkit/sweep/adaptive.py)."""
+    """[adaptive]: the target and budget of adaptive bias steps (benchkit/sweep/adaptive.py,
+    whose AdaptiveSettings holds the defaults)."""
+    from dataclasses import fields
+
+    from benchkit.sweep.adaptive import COARSE_SPACINGS, AdaptiveSettings
+
+    d = {x.name: x.default for x in fields(AdaptiveSettings)}
     f = _Fields(raw, where, "adaptive.")
     ad = {
         "target_band_pct_of_C0": f.number("target_band_pct_of_C0", required=True, positive=True,
                                           hi=100.0),
-        "max_points": f.integer("max_points", default=40, lo=3, hi=10000),
-        "coarse_points": f.integer("coarse_points", default=7, lo=3, hi=1000),
+        "max_points": f.integer("max_points", default=d["max_points"], lo=3, hi=10000),
+        "coarse_points": f.integer("coarse_points", default=d["coarse_points"], lo=3, hi=1000),
         # the first loop: "stepped" (each step aims at a change of C) or "even" (coarse_points
         # evenly spaced); benchkit/sweep/adaptive.py LoopPlanner._continue_first
-        "coarse_spacing": f.choice("coarse_spacing", COARSE_SPACINGS, default="stepped"),
-        "coarse_step_pct_of_C0": f.number("coarse_step_pct_of_C0", default=15.0, positive=True,
-                                          hi=99.0),
-        "coverage_k": f.number("coverage_k", default=2.0, positive=True, hi=10.0),
-        "resolution_V": f.number("resolution_V", default=None, positive=True, hi=MAX_BIAS_V),
-        "model": f.string("model", default="auto", nonempty=True),
+        "coarse_spacing": f.choice("coarse_spacing", COARSE_SPACINGS, default=d["coarse_spacing"]),
+        "coarse_step_pct_of_C0": f.number("coarse_step_pct_of_C0", default=d["coarse_step_pct_of_C0"],
+                                          positive=True, hi=99.0),
+        "coverage_k": f.number("coverage_k", default=d["coverage_k"], positive=True, hi=10.0),
+        "resolution_V": f.number("resolution_V", default=d["resolution_V"], positive=True, hi=MAX_BIAS_V),
+        "model": f.string("model", default=d["model"], nonempty=True),
     }
     f.done()
     if ad["max_points"] < 2 * ad["coarse_points"] - 1 and "falling" in bias["branches"]:
